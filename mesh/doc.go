@@ -1,0 +1,37 @@
+// Package mesh holds scanfold's geometry: triangle meshes, oriented
+// coloured point clouds, rigid poses and pinhole cameras, with the file
+// formats (PLY, STL, OBJ), metrics, clean-up, spatial search, rigid
+// alignment and isosurface extraction that the later pipeline stages
+// (reconstruct, features, validate) build on.
+//
+// # Units and frames
+//
+// Lengths are metres and angles radians everywhere inside the package.
+// A Pose maps points of one frame into another, x ↦ R·x + T; every
+// variable that holds one says which way it maps (CamToWorld,
+// ModelToCam). Camera frames follow the pinhole convention of
+// Intrinsics: x right, y down, z forward along the optical axis.
+//
+// # Invariants
+//
+//   - A Mesh's Normals and Colors are either nil or exactly as long as
+//     Vertices; every Face indexes Vertices (Mesh.Validate checks this).
+//   - A Cloud's Normals and Colors are either nil or exactly as long as
+//     Points.
+//   - A Pose's R is a proper rotation (orthonormal, determinant +1) up
+//     to floating-point rounding; constructors guarantee it and
+//     Pose.Orthonormalize restores it after long chains of products.
+//
+// # Degenerate input
+//
+// Decided once, here: a zero-length vector normalises to the zero
+// vector (never NaN); an empty mesh or cloud has zero area, volume and
+// diameter and an empty bounding box (Box.Empty reports it); faces with
+// a repeated vertex index or zero area contribute nothing to metrics and
+// are removed by clean-up. Functions that cannot give a meaningful
+// answer for degenerate input (fewer than three non-collinear points for
+// an alignment, say) return an error wrapping ErrDegenerate.
+//
+// Programmer errors (mismatched slice lengths passed to a function that
+// documents them) panic; anything that comes from data returns an error.
+package mesh
