@@ -1,0 +1,318 @@
+package mesh
+
+import (
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/mat"
+	"gonum.org/v1/gonum/spatial/r3"
+)
+
+// FitRigid returns the rigid pose P minimising Σ wᵢ‖P·srcᵢ − dstᵢ‖²
+// in closed form: the SVD method of Kabsch (1976, Acta Cryst. A32,
+// DOI 10.1107/S0567739476001873) with the reflection correction of
+// Umeyama (1991, IEEE TPAMI 13(4), DOI 10.1109/34.88573). weights may be
+// nil (all ones). It returns an error wrapping ErrDegenerate when fewer
+// than three points carry weight or they are collinear, because the
+// rotation about their line is then undetermined.
+func FitRigid(src, dst []r3.Vec, weights []float64) (Pose, error) {
+	_, p, err := fit(src, dst, weights, false)
+	return p, err
+}
+
+// FitSimilarity returns the scale c and rigid pose P minimising
+// Σ‖c·R·srcᵢ + T − dstᵢ‖² (Umeyama 1991, Theorem and eq. 40–42); the
+// returned pose maps x to c·R·x + T only when its R is multiplied by c,
+// so it is given separately: dst ≈ c·P.R·src + P.T.
+func FitSimilarity(src, dst []r3.Vec) (scale float64, p Pose, err error) {
+	return fit(src, dst, nil, true)
+}
+
+func fit(src, dst []r3.Vec, w []float64, withScale bool) (float64, Pose, error) {
+	if len(src) != len(dst) {
+		panic(fmt.Sprintf("mesh: fit with %d source and %d destination points", len(src), len(dst)))
+	}
+	if w != nil && len(w) != len(src) {
+		panic(fmt.Sprintf("mesh: fit with %d weights for %d points", len(w), len(src)))
+	}
+	weight := func(i int) float64 {
+		if w == nil {
+			return 1
+		}
+		return w[i]
+	}
+	var sw float64
+	var ms, md r3.Vec
+	n := 0
+	for i := range src {
+		wi := weight(i)
+		if !(wi > 0) {
+			continue
+		}
+		n++
+		sw += wi
+		ms = r3.Add(ms, r3.Scale(wi, src[i]))
+		md = r3.Add(md, r3.Scale(wi, dst[i]))
+	}
+	if n < 3 {
+		return 0, Pose{}, fmt.Errorf("mesh: rigid fit needs 3 weighted point pairs, have %d: %w", n, ErrDegenerate)
+	}
+	ms = r3.Scale(1/sw, ms)
+	md = r3.Scale(1/sw, md)
+	// Cross-covariance Σ = (1/Σw) Σ wᵢ (dᵢ − μd)(sᵢ − μs)ᵀ, and the
+	// source variance σ² for the scale.
+	var cov [9]float64
+	var varS float64
+	for i := range src {
+		wi := weight(i)
+		if !(wi > 0) {
+			continue
+		}
+		s := r3.Sub(src[i], ms)
+		d := r3.Sub(dst[i], md)
+		varS += wi * r3.Dot(s, s)
+		dv := [3]float64{d.X, d.Y, d.Z}
+		sv := [3]float64{s.X, s.Y, s.Z}
+		for a := 0; a < 3; a++ {
+			for b := 0; b < 3; b++ {
+				cov[3*a+b] += wi * dv[a] * sv[b]
+			}
+		}
+	}
+	for k := range cov {
+		cov[k] /= sw
+	}
+	varS /= sw
+	var svd mat.SVD
+	if !svd.Factorize(mat.NewDense(3, 3, cov[:]), mat.SVDFull) {
+		return 0, Pose{}, fmt.Errorf("mesh: rigid fit: SVD did not converge: %w", ErrDegenerate)
+	}
+	vals := svd.Values(nil)
+	// Rank < 2 means the points are collinear (or coincident): the
+	// rotation about their common line is free. Relative to the largest
+	// singular value so that the test does not depend on units.
+	if vals[0] == 0 || vals[1] <= 1e-12*vals[0] {
+		return 0, Pose{}, fmt.Errorf("mesh: rigid fit: points are collinear or coincident: %w", ErrDegenerate)
+	}
+	var u, v mat.Dense
+	svd.UTo(&u)
+	svd.VTo(&v)
+	s3 := 1.0
+	if mat.Det(&u)*mat.Det(&v) < 0 {
+		s3 = -1 // Umeyama's S = diag(1, 1, −1): the nearest proper rotation
+	}
+	var r Mat3
+	for a := 0; a < 3; a++ {
+		for b := 0; b < 3; b++ {
+			r[a][b] = u.At(a, 0)*v.At(b, 0) + u.At(a, 1)*v.At(b, 1) + s3*u.At(a, 2)*v.At(b, 2)
+		}
+	}
+	c := 1.0
+	if withScale {
+		if varS == 0 {
+			return 0, Pose{}, fmt.Errorf("mesh: similarity fit: source points coincide: %w", ErrDegenerate)
+		}
+		c = (vals[0] + vals[1] + s3*vals[2]) / varS
+	}
+	t := r3.Sub(md, r3.Scale(c, r.MulVec(ms)))
+	return c, Pose{R: r, T: t}, nil
+}
+
+// NearestFinder answers nearest-neighbour queries over a fixed point
+// set; *KDTree implements it.
+type NearestFinder interface {
+	Nearest(q r3.Vec) (index int, dist2 float64)
+}
+
+// ICPOptions tunes point-to-plane ICP.
+type ICPOptions struct {
+	// MaxIterations bounds the Gauss–Newton steps.
+	// DEFAULT: 30
+	MaxIterations int
+	// MaxDistance rejects pairs farther apart than this (metres). It must
+	// be positive: a few times the expected misalignment plus noise.
+	// DEFAULT: 0.01
+	MaxDistance float64
+	// MaxNormalAngle rejects pairs whose normals differ by more than this
+	// (radians) when the source has normals.
+	// DEFAULT: π/4
+	MaxNormalAngle float64
+	// HuberDelta is the residual (metres) beyond which a pair's weight
+	// falls off as δ/|r| (Huber's M-estimator); 0 gives plain least
+	// squares.
+	// DEFAULT: 0.002
+	HuberDelta float64
+	// MinPairs is the fewest accepted pairs with which a step is taken.
+	// DEFAULT: 6
+	MinPairs int
+	// StopRotation and StopTranslation end the iteration when a step
+	// moves less than both (radians, metres).
+	// DEFAULT: 1e-6 rad, 1e-7 m
+	StopRotation, StopTranslation float64
+}
+
+// DefaultICPOptions returns the documented defaults.
+func DefaultICPOptions() ICPOptions {
+	return ICPOptions{
+		MaxIterations:   30,
+		MaxDistance:     0.01,
+		MaxNormalAngle:  math.Pi / 4,
+		HuberDelta:      0.002,
+		MinPairs:        6,
+		StopRotation:    1e-6,
+		StopTranslation: 1e-7,
+	}
+}
+
+// ICPResult is the outcome of an ICP run.
+type ICPResult struct {
+	Pose        Pose    // the refined source-to-destination pose
+	Iterations  int     // steps taken
+	Pairs       int     // pairs accepted in the last step
+	InlierRatio float64 // Pairs over the source points considered
+	RMS         float64 // root-mean-square point-to-plane residual of the accepted pairs (metres)
+	Converged   bool    // the last step was below the stop thresholds
+}
+
+// ICPPointToPlane refines init, a pose mapping src into the frame of dst,
+// by point-to-plane ICP (Chen & Medioni 1992, DOI
+// 10.1016/0262-8856(92)90066-C) with the small-angle linearisation of
+// Low (2004, UNC TR04-004): each step minimises
+// Σ wᵢ((R·pᵢ + t − qᵢ)·nᵢ)² over the rotation vector ω and translation t
+// by the 6×6 normal equations, with qᵢ the nearest destination point and
+// nᵢ its normal. dst must have normals; near is a nearest-neighbour index
+// over dst.Points (NewKDTree(dst.Points)). Pairs farther than
+// MaxDistance, or whose normals (when src has them) differ by more than
+// MaxNormalAngle, are rejected.
+func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOptions) (ICPResult, error) {
+	if len(dst.Normals) != len(dst.Points) {
+		return ICPResult{}, fmt.Errorf("mesh: point-to-plane ICP needs destination normals (%d for %d points)", len(dst.Normals), len(dst.Points))
+	}
+	if len(src.Points) == 0 || len(dst.Points) == 0 {
+		return ICPResult{}, fmt.Errorf("mesh: ICP on an empty cloud: %w", ErrDegenerate)
+	}
+	if !(opt.MaxDistance > 0) {
+		return ICPResult{}, fmt.Errorf("mesh: ICP MaxDistance must be positive, is %v", opt.MaxDistance)
+	}
+	useNormals := len(src.Normals) == len(src.Points)
+	cosMax := math.Cos(opt.MaxNormalAngle)
+	maxD2 := opt.MaxDistance * opt.MaxDistance
+	pose := init
+	res := ICPResult{Pose: pose}
+	for it := 0; it < opt.MaxIterations; it++ {
+		var a [21]float64 // upper triangle of JᵀWJ, row-major
+		var b [6]float64  // JᵀWr
+		var sse, sw float64
+		pairs := 0
+		for i, s := range src.Points {
+			p := pose.Apply(s)
+			j, d2 := near.Nearest(p)
+			if j < 0 || d2 > maxD2 {
+				continue
+			}
+			n := dst.Normals[j]
+			if useNormals && r3.Dot(pose.Rotate(src.Normals[i]), n) < cosMax {
+				continue
+			}
+			r := r3.Dot(r3.Sub(p, dst.Points[j]), n)
+			w := 1.0
+			if opt.HuberDelta > 0 && math.Abs(r) > opt.HuberDelta {
+				w = opt.HuberDelta / math.Abs(r)
+			}
+			c := r3.Cross(p, n)
+			jr := [6]float64{c.X, c.Y, c.Z, n.X, n.Y, n.Z}
+			k := 0
+			for u := 0; u < 6; u++ {
+				wu := w * jr[u]
+				for v := u; v < 6; v++ {
+					a[k] += wu * jr[v]
+					k++
+				}
+				b[u] += wu * r
+			}
+			sse += w * r * r
+			sw += w
+			pairs++
+		}
+		res.Pairs = pairs
+		res.InlierRatio = float64(pairs) / float64(len(src.Points))
+		if sw > 0 {
+			res.RMS = math.Sqrt(sse / sw)
+		}
+		if pairs < opt.MinPairs {
+			return res, fmt.Errorf("mesh: ICP step %d found %d pairs within %.4g m, need %d: %w", it+1, pairs, opt.MaxDistance, opt.MinPairs, ErrDegenerate)
+		}
+		x, ok := solve6(a, b)
+		if !ok {
+			return res, fmt.Errorf("mesh: ICP step %d: the pairs do not constrain all six degrees of freedom: %w", it+1, ErrDegenerate)
+		}
+		omega := r3.Vec{X: -x[0], Y: -x[1], Z: -x[2]}
+		dt := r3.Vec{X: -x[3], Y: -x[4], Z: -x[5]}
+		angle := r3.Norm(omega)
+		step := Pose{R: RotationFromAxisAngle(omega, angle), T: dt}
+		pose = step.Mul(pose).Orthonormalize()
+		res.Pose = pose
+		res.Iterations = it + 1
+		if angle < opt.StopRotation && r3.Norm(dt) < opt.StopTranslation {
+			res.Converged = true
+			break
+		}
+	}
+	return res, nil
+}
+
+// solve6 solves the symmetric 6×6 system A·x = b, A given by its upper
+// triangle in row-major order, by Cholesky factorisation. It reports
+// false when A is not positive definite to working precision (a rank-
+// deficient constraint set, such as a plane that leaves in-plane motion
+// free).
+func solve6(ut [21]float64, b [6]float64) ([6]float64, bool) {
+	var a [6][6]float64
+	k := 0
+	for u := 0; u < 6; u++ {
+		for v := u; v < 6; v++ {
+			a[u][v] = ut[k]
+			a[v][u] = ut[k]
+			k++
+		}
+	}
+	var maxDiag float64
+	for i := 0; i < 6; i++ {
+		maxDiag = math.Max(maxDiag, a[i][i])
+	}
+	var l [6][6]float64
+	for i := 0; i < 6; i++ {
+		for j := 0; j <= i; j++ {
+			s := a[i][j]
+			for m := 0; m < j; m++ {
+				s -= l[i][m] * l[j][m]
+			}
+			if i == j {
+				// A pivot this small relative to the largest diagonal
+				// entry means a direction the data does not constrain.
+				if s <= 1e-12*maxDiag {
+					return [6]float64{}, false
+				}
+				l[i][i] = math.Sqrt(s)
+			} else {
+				l[i][j] = s / l[j][j]
+			}
+		}
+	}
+	var y, x [6]float64
+	for i := 0; i < 6; i++ {
+		s := b[i]
+		for m := 0; m < i; m++ {
+			s -= l[i][m] * y[m]
+		}
+		y[i] = s / l[i][i]
+	}
+	for i := 5; i >= 0; i-- {
+		s := y[i]
+		for m := i + 1; m < 6; m++ {
+			s -= l[m][i] * x[m]
+		}
+		x[i] = s / l[i][i]
+	}
+	return x, true
+}

@@ -1,0 +1,245 @@
+package mesh
+
+import (
+	"errors"
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"gonum.org/v1/gonum/mat"
+	"gonum.org/v1/gonum/spatial/r3"
+	"gonum.org/v1/gonum/spatial/transform"
+)
+
+func randomPose(rng *rand.Rand, maxAngle, maxShift float64) Pose {
+	axis := r3.Vec{X: rng.NormFloat64(), Y: rng.NormFloat64(), Z: rng.NormFloat64()}
+	t := r3.Vec{X: rng.Float64()*2 - 1, Y: rng.Float64()*2 - 1, Z: rng.Float64()*2 - 1}
+	return PoseFromAxisAngle(axis, rng.Float64()*maxAngle, r3.Scale(maxShift, t))
+}
+
+func randomPoints(rng *rand.Rand, n int, scale float64) []r3.Vec {
+	pts := make([]r3.Vec, n)
+	for i := range pts {
+		pts[i] = r3.Vec{X: rng.NormFloat64() * scale, Y: rng.NormFloat64() * scale, Z: rng.NormFloat64() * scale}
+	}
+	return pts
+}
+
+func toDense(pts []r3.Vec) *mat.Dense {
+	d := mat.NewDense(len(pts), 3, nil)
+	for i, p := range pts {
+		d.SetRow(i, []float64{p.X, p.Y, p.Z})
+	}
+	return d
+}
+
+// TestFitSimilarityMatchesGonum checks our closed-form fit against
+// gonum's spatial/transform.UmeyamaTransform (a general-purpose reference
+// implementation of Umeyama 1991) on noisy correspondences.
+func TestFitSimilarityMatchesGonum(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 2))
+	for trial := 0; trial < 20; trial++ {
+		src := randomPoints(rng, 50, 0.05)
+		truth := randomPose(rng, math.Pi, 0.5)
+		scale := 0.5 + rng.Float64()
+		dst := make([]r3.Vec, len(src))
+		for i, s := range src {
+			d := r3.Add(r3.Scale(scale, truth.R.MulVec(s)), truth.T)
+			dst[i] = r3.Add(d, r3.Scale(1e-3, r3.Vec{X: rng.NormFloat64(), Y: rng.NormFloat64(), Z: rng.NormFloat64()}))
+		}
+		c, p, err := FitSimilarity(src, dst)
+		if err != nil {
+			t.Fatal(err)
+		}
+		gc, gr, gt, err := transform.UmeyamaTransform(toDense(src), toDense(dst))
+		if err != nil {
+			t.Fatal(err)
+		}
+		// Both solve the same least-squares problem in closed form; they
+		// may differ only by rounding in the 3×3 SVD, far below 1e-9.
+		if math.Abs(c-gc) > 1e-9 {
+			t.Errorf("trial %d: scale %v, gonum %v", trial, c, gc)
+		}
+		for a := 0; a < 3; a++ {
+			for b := 0; b < 3; b++ {
+				if d := math.Abs(p.R[a][b] - gr.At(a, b)); d > 1e-9 {
+					t.Errorf("trial %d: R[%d][%d] = %v, gonum %v", trial, a, b, p.R[a][b], gr.At(a, b))
+				}
+			}
+		}
+		if d := r3.Norm(r3.Sub(p.T, r3.Vec{X: gt.AtVec(0), Y: gt.AtVec(1), Z: gt.AtVec(2)})); d > 1e-9 {
+			t.Errorf("trial %d: T differs from gonum by %v", trial, d)
+		}
+	}
+}
+
+func TestFitRigidRecoversMotion(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	for trial := 0; trial < 20; trial++ {
+		src := randomPoints(rng, 10, 0.1)
+		truth := randomPose(rng, math.Pi, 1)
+		dst := make([]r3.Vec, len(src))
+		for i, s := range src {
+			dst[i] = truth.Apply(s)
+		}
+		p, err := FitRigid(src, dst, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		// Exact data: only rounding error remains.
+		if a := RotationAngle(p, truth); a > 1e-9 {
+			t.Errorf("trial %d: rotation off by %v rad", trial, a)
+		}
+		if d := r3.Norm(r3.Sub(p.T, truth.T)); d > 1e-9 {
+			t.Errorf("trial %d: translation off by %v", trial, d)
+		}
+	}
+}
+
+func TestFitRigidNearReflection(t *testing.T) {
+	// A planar point set with a 180° rotation: the unconstrained
+	// orthogonal solution could be a reflection; Umeyama's correction
+	// must keep det R = +1.
+	src := []r3.Vec{{X: 1}, {Y: 1}, {X: -1}, {Y: -1}, {X: 0.5, Y: 0.5}}
+	truth := PoseFromAxisAngle(r3.Vec{X: 1, Y: 1}, math.Pi, r3.Vec{Z: 2})
+	dst := make([]r3.Vec, len(src))
+	for i, s := range src {
+		dst[i] = truth.Apply(s)
+	}
+	p, err := FitRigid(src, dst, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if d := p.R.Det(); math.Abs(d-1) > 1e-12 {
+		t.Fatalf("det R = %v", d)
+	}
+	for i, s := range src {
+		if e := r3.Norm(r3.Sub(p.Apply(s), dst[i])); e > 1e-9 {
+			t.Errorf("point %d misfit %v", i, e)
+		}
+	}
+}
+
+func TestFitRigidDegenerate(t *testing.T) {
+	for name, src := range map[string][]r3.Vec{
+		"two points": {{X: 1}, {X: 2}},
+		"collinear":  {{X: 1}, {X: 2}, {X: 3}, {X: 4}},
+		"coincident": {{X: 1}, {X: 1}, {X: 1}},
+	} {
+		if _, err := FitRigid(src, src, nil); !errors.Is(err, ErrDegenerate) {
+			t.Errorf("%s: err = %v, want ErrDegenerate", name, err)
+		}
+	}
+	// Zero weights remove points.
+	src := []r3.Vec{{X: 1}, {Y: 1}, {Z: 1}, {X: 5}}
+	if _, err := FitRigid(src, src, []float64{1, 1, 0, 0}); !errors.Is(err, ErrDegenerate) {
+		t.Errorf("weighted to two points: err = %v, want ErrDegenerate", err)
+	}
+}
+
+// bruteNearest is the obviously right nearest-neighbour oracle.
+type bruteNearest []r3.Vec
+
+func (b bruteNearest) Nearest(q r3.Vec) (int, float64) {
+	best, bd := -1, math.Inf(1)
+	for i, p := range b {
+		if d := r3.Norm2(r3.Sub(p, q)); d < bd {
+			best, bd = i, d
+		}
+	}
+	return best, bd
+}
+
+// boxSurfaceCloud samples the six faces of an axis-aligned box with
+// outward normals: a shape that constrains all six degrees of freedom.
+func boxSurfaceCloud(rng *rand.Rand, n int, size r3.Vec) *Cloud {
+	c := &Cloud{}
+	for i := 0; i < n; i++ {
+		u, v := rng.Float64()-0.5, rng.Float64()-0.5
+		var p, nrm r3.Vec
+		switch i % 6 {
+		case 0:
+			p, nrm = r3.Vec{X: size.X / 2, Y: u * size.Y, Z: v * size.Z}, r3.Vec{X: 1}
+		case 1:
+			p, nrm = r3.Vec{X: -size.X / 2, Y: u * size.Y, Z: v * size.Z}, r3.Vec{X: -1}
+		case 2:
+			p, nrm = r3.Vec{X: u * size.X, Y: size.Y / 2, Z: v * size.Z}, r3.Vec{Y: 1}
+		case 3:
+			p, nrm = r3.Vec{X: u * size.X, Y: -size.Y / 2, Z: v * size.Z}, r3.Vec{Y: -1}
+		case 4:
+			p, nrm = r3.Vec{X: u * size.X, Y: v * size.Y, Z: size.Z / 2}, r3.Vec{Z: 1}
+		default:
+			p, nrm = r3.Vec{X: u * size.X, Y: v * size.Y, Z: -size.Z / 2}, r3.Vec{Z: -1}
+		}
+		c.Points = append(c.Points, p)
+		c.Normals = append(c.Normals, nrm)
+	}
+	return c
+}
+
+// TestICPMatchesClosedForm moves a cloud by a known small rigid motion
+// and checks that point-to-plane ICP (from the identity) lands on the
+// same pose as the closed-form Umeyama (1991) solution on the true
+// correspondences, computed by gonum's spatial/transform.
+func TestICPMatchesClosedForm(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	dst := boxSurfaceCloud(rng, 3000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
+	for trial := 0; trial < 5; trial++ {
+		truth := randomPose(rng, 5*math.Pi/180, 0.003) // src → dst
+		inv := truth.Inv()
+		src := dst.Transform(inv)
+		opt := DefaultICPOptions()
+		res, err := ICPPointToPlane(src, dst, bruteNearest(dst.Points), Identity(), opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		_, gr, gt, err := transform.UmeyamaTransform(toDense(src.Points), toDense(dst.Points))
+		if err != nil {
+			t.Fatal(err)
+		}
+		ref := Pose{T: r3.Vec{X: gt.AtVec(0), Y: gt.AtVec(1), Z: gt.AtVec(2)}}
+		for a := 0; a < 3; a++ {
+			for b := 0; b < 3; b++ {
+				ref.R[a][b] = gr.At(a, b)
+			}
+		}
+		// Noise-free data: ICP converges to the exact pose; the residual
+		// left is the stop threshold (1e-6 rad, 1e-7 m) plus rounding.
+		if a := RotationAngle(res.Pose, ref); a > 1e-5 {
+			t.Errorf("trial %d: rotation differs from closed form by %.3g rad", trial, a)
+		}
+		if d := r3.Norm(r3.Sub(res.Pose.T, ref.T)); d > 1e-6 {
+			t.Errorf("trial %d: translation differs from closed form by %.3g m", trial, d)
+		}
+		if !res.Converged || res.RMS > 1e-6 {
+			t.Errorf("trial %d: converged=%v rms=%v after %d iterations", trial, res.Converged, res.RMS, res.Iterations)
+		}
+	}
+}
+
+func TestICPErrors(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 8))
+	dst := boxSurfaceCloud(rng, 300, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
+	noNormals := &Cloud{Points: dst.Points}
+	if _, err := ICPPointToPlane(dst, noNormals, bruteNearest(dst.Points), Identity(), DefaultICPOptions()); err == nil {
+		t.Error("no destination normals: want an error")
+	}
+	if _, err := ICPPointToPlane(&Cloud{}, dst, bruteNearest(dst.Points), Identity(), DefaultICPOptions()); !errors.Is(err, ErrDegenerate) {
+		t.Errorf("empty source: err = %v", err)
+	}
+	// A flat patch leaves in-plane motion free: the normal equations are
+	// singular and ICP must say so rather than return a random slide.
+	plane := &Cloud{}
+	for i := 0; i < 200; i++ {
+		plane.Points = append(plane.Points, r3.Vec{X: rng.Float64() * 0.1, Y: rng.Float64() * 0.1})
+		plane.Normals = append(plane.Normals, r3.Vec{Z: 1})
+	}
+	if _, err := ICPPointToPlane(plane, plane, bruteNearest(plane.Points), Identity(), DefaultICPOptions()); !errors.Is(err, ErrDegenerate) {
+		t.Errorf("plane: err = %v, want ErrDegenerate", err)
+	}
+	// Far away: no pairs.
+	far := dst.Transform(PoseFromAxisAngle(r3.Vec{Z: 1}, 0, r3.Vec{X: 1}))
+	if _, err := ICPPointToPlane(far, dst, bruteNearest(dst.Points), Identity(), DefaultICPOptions()); !errors.Is(err, ErrDegenerate) {
+		t.Errorf("no pairs: err = %v", err)
+	}
+}
