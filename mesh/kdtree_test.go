@@ -19,9 +19,9 @@ import (
 // distances alike, because both sides compute each distance with the
 // same floating-point operations.
 
-func bruteDist2(p, q r3.Vec) float64 { return sq3(p.X-q.X, p.Y-q.Y, p.Z-q.Z) }
+func kdOracleDist2(p, q r3.Vec) float64 { return sq3(p.X-q.X, p.Y-q.Y, p.Z-q.Z) }
 
-func bruteNearest(pts []r3.Vec, q r3.Vec) (int, float64) {
+func kdOracleNearest(pts []r3.Vec, q r3.Vec) (int, float64) {
 	best, bestD := -1, math.Inf(1)
 	if !isFinite(q) {
 		return best, bestD
@@ -30,21 +30,21 @@ func bruteNearest(pts []r3.Vec, q r3.Vec) (int, float64) {
 		if !isFinite(p) {
 			continue
 		}
-		if d := bruteDist2(p, q); d < bestD {
+		if d := kdOracleDist2(p, q); d < bestD {
 			best, bestD = i, d
 		}
 	}
 	return best, bestD
 }
 
-func bruteKNearest(pts []r3.Vec, q r3.Vec, k int) []Neighbor {
+func kdOracleKNearest(pts []r3.Vec, q r3.Vec, k int) []Neighbor {
 	if k <= 0 || !isFinite(q) {
 		return nil
 	}
 	var all []Neighbor
 	for i, p := range pts {
 		if isFinite(p) {
-			all = append(all, Neighbor{Index: i, Dist2: bruteDist2(p, q)})
+			all = append(all, Neighbor{Index: i, Dist2: kdOracleDist2(p, q)})
 		}
 	}
 	slices.SortFunc(all, func(a, b Neighbor) int {
@@ -53,13 +53,13 @@ func bruteKNearest(pts []r3.Vec, q r3.Vec, k int) []Neighbor {
 	return all[:min(k, len(all))]
 }
 
-func bruteRadius(pts []r3.Vec, q r3.Vec, r float64) []int {
+func kdOracleRadius(pts []r3.Vec, q r3.Vec, r float64) []int {
 	if !(r >= 0) || !isFinite(q) {
 		return nil
 	}
 	var out []int
 	for i, p := range pts {
-		if isFinite(p) && bruteDist2(p, q) <= r*r {
+		if isFinite(p) && kdOracleDist2(p, q) <= r*r {
 			out = append(out, i)
 		}
 	}
@@ -68,7 +68,7 @@ func bruteRadius(pts []r3.Vec, q r3.Vec, r float64) []int {
 
 // Point-cloud generators for the oracle tests, each from a fixed seed.
 
-func uniformCloud(rng *rand.Rand, n int) []r3.Vec {
+func kdUniformCloud(rng *rand.Rand, n int) []r3.Vec {
 	pts := make([]r3.Vec, n)
 	for i := range pts {
 		pts[i] = r3.Vec{X: rng.Float64(), Y: rng.Float64(), Z: rng.Float64()}
@@ -76,10 +76,10 @@ func uniformCloud(rng *rand.Rand, n int) []r3.Vec {
 	return pts
 }
 
-// clusteredCloud draws n points around 5 centres with a spread of 1% of
+// kdClusteredCloud draws n points around 5 centres with a spread of 1% of
 // the unit cube, a stand-in for a scanned surface's uneven density.
-func clusteredCloud(rng *rand.Rand, n int) []r3.Vec {
-	centres := uniformCloud(rng, 5)
+func kdClusteredCloud(rng *rand.Rand, n int) []r3.Vec {
+	centres := kdUniformCloud(rng, 5)
 	pts := make([]r3.Vec, n)
 	for i := range pts {
 		c := centres[rng.IntN(len(centres))]
@@ -88,10 +88,10 @@ func clusteredCloud(rng *rand.Rand, n int) []r3.Vec {
 	return pts
 }
 
-// duplicateCloud draws n points from only 7 distinct locations, so most
+// kdDuplicateCloud draws n points from only 7 distinct locations, so most
 // queries meet ties.
-func duplicateCloud(rng *rand.Rand, n int) []r3.Vec {
-	base := uniformCloud(rng, 7)
+func kdDuplicateCloud(rng *rand.Rand, n int) []r3.Vec {
+	base := kdUniformCloud(rng, 7)
 	pts := make([]r3.Vec, n)
 	for i := range pts {
 		pts[i] = base[rng.IntN(len(base))]
@@ -99,8 +99,8 @@ func duplicateCloud(rng *rand.Rand, n int) []r3.Vec {
 	return pts
 }
 
-// collinearCloud puts n points on one line, so two axes have no extent.
-func collinearCloud(rng *rand.Rand, n int) []r3.Vec {
+// kdCollinearCloud puts n points on one line, so two axes have no extent.
+func kdCollinearCloud(rng *rand.Rand, n int) []r3.Vec {
 	dir := r3.Vec{X: 1, Y: 2, Z: -0.5}
 	pts := make([]r3.Vec, n)
 	for i := range pts {
@@ -109,9 +109,9 @@ func collinearCloud(rng *rand.Rand, n int) []r3.Vec {
 	return pts
 }
 
-// gridCloud puts points on an integer lattice (exact squared distances,
+// kdGridCloud puts points on an integer lattice (exact squared distances,
 // many exact ties), shuffled.
-func gridCloud(rng *rand.Rand, side int) []r3.Vec {
+func kdGridCloud(rng *rand.Rand, side int) []r3.Vec {
 	var pts []r3.Vec
 	for x := 0; x < side; x++ {
 		for y := 0; y < side; y++ {
@@ -124,7 +124,7 @@ func gridCloud(rng *rand.Rand, side int) []r3.Vec {
 	return pts
 }
 
-type cloudCase struct {
+type kdCloudCase struct {
 	name string
 	pts  []r3.Vec
 	// scale is the extent of the cloud, for choosing radii and query
@@ -132,31 +132,31 @@ type cloudCase struct {
 	scale float64
 }
 
-func cloudCases() []cloudCase {
+func kdCloudCases() []kdCloudCase {
 	rng := rand.New(rand.NewPCG(1, 2))
-	withNaN := uniformCloud(rng, 300)
+	withNaN := kdUniformCloud(rng, 300)
 	withNaN[3].X = math.NaN()
 	withNaN[77].Z = math.Inf(1)
 	withNaN[150] = r3.Vec{X: math.Inf(-1), Y: math.NaN(), Z: 0}
-	return []cloudCase{
+	return []kdCloudCase{
 		{"empty", nil, 1},
 		{"single", []r3.Vec{{X: 0.5, Y: -0.25, Z: 2}}, 1},
 		{"two-equal", []r3.Vec{{X: 1, Y: 1, Z: 1}, {X: 1, Y: 1, Z: 1}}, 1},
-		{"bucket", uniformCloud(rng, kdBucket), 1},
-		{"bucket+1", uniformCloud(rng, kdBucket+1), 1},
-		{"uniform-1000", uniformCloud(rng, 1000), 1},
-		{"uniform-5003", uniformCloud(rng, 5003), 1},
-		{"clustered-3000", clusteredCloud(rng, 3000), 1},
-		{"duplicates-2000", duplicateCloud(rng, 2000), 1},
-		{"collinear-1500", collinearCloud(rng, 1500), 2},
-		{"grid-12", gridCloud(rng, 12), 12},
+		{"bucket", kdUniformCloud(rng, kdBucket), 1},
+		{"bucket+1", kdUniformCloud(rng, kdBucket+1), 1},
+		{"uniform-1000", kdUniformCloud(rng, 1000), 1},
+		{"uniform-5003", kdUniformCloud(rng, 5003), 1},
+		{"clustered-3000", kdClusteredCloud(rng, 3000), 1},
+		{"duplicates-2000", kdDuplicateCloud(rng, 2000), 1},
+		{"collinear-1500", kdCollinearCloud(rng, 1500), 2},
+		{"grid-12", kdGridCloud(rng, 12), 12},
 		{"non-finite-300", withNaN, 1},
 	}
 }
 
 // queries returns query points for a cloud: random points in and around
 // its extent, and points of the cloud itself (exact hits).
-func queries(rng *rand.Rand, c cloudCase, n int) []r3.Vec {
+func kdQueries(rng *rand.Rand, c kdCloudCase, n int) []r3.Vec {
 	var qs []r3.Vec
 	for i := 0; i < n; i++ {
 		qs = append(qs, r3.Vec{
@@ -176,11 +176,11 @@ func queries(rng *rand.Rand, c cloudCase, n int) []r3.Vec {
 
 func TestKDTreeNearestMatchesBruteForce(t *testing.T) {
 	rng := rand.New(rand.NewPCG(3, 4))
-	for _, c := range cloudCases() {
+	for _, c := range kdCloudCases() {
 		tree := NewKDTree(c.pts)
-		for _, q := range queries(rng, c, 200) {
+		for _, q := range kdQueries(rng, c, 200) {
 			gotI, gotD := tree.Nearest(q)
-			wantI, wantD := bruteNearest(c.pts, q)
+			wantI, wantD := kdOracleNearest(c.pts, q)
 			if gotI != wantI || gotD != wantD {
 				t.Fatalf("%s: Nearest(%v) = (%d, %g), want (%d, %g)", c.name, q, gotI, gotD, wantI, wantD)
 			}
@@ -191,12 +191,12 @@ func TestKDTreeNearestMatchesBruteForce(t *testing.T) {
 func TestKDTreeKNearestMatchesBruteForce(t *testing.T) {
 	rng := rand.New(rand.NewPCG(5, 6))
 	var buf []Neighbor
-	for _, c := range cloudCases() {
+	for _, c := range kdCloudCases() {
 		tree := NewKDTree(c.pts)
 		for _, k := range []int{0, 1, 2, 10, 33, len(c.pts) + 5} {
-			for _, q := range queries(rng, c, 40) {
+			for _, q := range kdQueries(rng, c, 40) {
 				buf = tree.KNearest(q, k, buf)
-				want := bruteKNearest(c.pts, q, k)
+				want := kdOracleKNearest(c.pts, q, k)
 				if len(buf) != len(want) || (len(want) > 0 && !slices.Equal(buf, want)) {
 					t.Fatalf("%s: KNearest(%v, %d) =\n%v\nwant\n%v", c.name, q, k, buf, want)
 				}
@@ -208,14 +208,14 @@ func TestKDTreeKNearestMatchesBruteForce(t *testing.T) {
 func TestKDTreeRadiusMatchesBruteForce(t *testing.T) {
 	rng := rand.New(rand.NewPCG(7, 8))
 	var buf []int
-	for _, c := range cloudCases() {
+	for _, c := range kdCloudCases() {
 		tree := NewKDTree(c.pts)
 		// Radii from nothing to everything; on the grid, integer radii
 		// put many points exactly on the sphere (distance == r).
 		for _, r := range []float64{-1, 0, 0.01 * c.scale, 0.05 * c.scale, 0.2 * c.scale, 1, 2, 3 * c.scale, math.Inf(1), math.NaN()} {
-			for _, q := range queries(rng, c, 25) {
+			for _, q := range kdQueries(rng, c, 25) {
 				buf = tree.Radius(q, r, buf)
-				want := bruteRadius(c.pts, q, r)
+				want := kdOracleRadius(c.pts, q, r)
 				if len(buf) != len(want) || (len(want) > 0 && !slices.Equal(buf, want)) {
 					t.Fatalf("%s: Radius(%v, %g) = %v, want %v", c.name, q, r, buf, want)
 				}
@@ -225,7 +225,7 @@ func TestKDTreeRadiusMatchesBruteForce(t *testing.T) {
 }
 
 func TestKDTreeNonFiniteQueries(t *testing.T) {
-	tree := NewKDTree(uniformCloud(rand.New(rand.NewPCG(9, 9)), 100))
+	tree := NewKDTree(kdUniformCloud(rand.New(rand.NewPCG(9, 9)), 100))
 	for _, q := range []r3.Vec{{X: math.NaN()}, {Y: math.Inf(1)}, {Z: math.Inf(-1)}} {
 		if i, d := tree.Nearest(q); i != -1 || !math.IsInf(d, 1) {
 			t.Errorf("Nearest(%v) = (%d, %g), want (-1, +Inf)", q, i, d)
@@ -240,7 +240,7 @@ func TestKDTreeNonFiniteQueries(t *testing.T) {
 }
 
 func TestKDTreeLen(t *testing.T) {
-	for _, c := range cloudCases() {
+	for _, c := range kdCloudCases() {
 		want := 0
 		for _, p := range c.pts {
 			if isFinite(p) {
@@ -258,7 +258,7 @@ func TestKDTreeLen(t *testing.T) {
 // and every point right of it ≥, and the index array is a permutation of
 // the finite input points with their coordinates.
 func TestKDTreeInvariants(t *testing.T) {
-	for _, c := range cloudCases() {
+	for _, c := range kdCloudCases() {
 		tree := NewKDTree(c.pts)
 		var walk func(node, lo, hi, level int)
 		walk = func(node, lo, hi, level int) {
@@ -312,9 +312,9 @@ func TestKDTreeCopiesInput(t *testing.T) {
 // only read the tree).
 func TestKDTreeConcurrent(t *testing.T) {
 	rng := rand.New(rand.NewPCG(10, 11))
-	pts := clusteredCloud(rng, 4000)
+	pts := kdClusteredCloud(rng, 4000)
 	tree := NewKDTree(pts)
-	qs := uniformCloud(rng, 400)
+	qs := kdUniformCloud(rng, 400)
 	want := make([][]Neighbor, len(qs))
 	for i, q := range qs {
 		want[i] = tree.KNearest(q, 8, nil)
@@ -344,7 +344,7 @@ func TestKDTreeConcurrent(t *testing.T) {
 
 func TestKDTreeQueriesDoNotAllocate(t *testing.T) {
 	rng := rand.New(rand.NewPCG(12, 13))
-	tree := NewKDTree(uniformCloud(rng, 2000))
+	tree := NewKDTree(kdUniformCloud(rng, 2000))
 	q := r3.Vec{X: 0.3, Y: 0.6, Z: 0.2}
 	nb := make([]Neighbor, 0, 16)
 	idx := make([]int, 0, 256)
@@ -365,11 +365,11 @@ func TestKDTreeQueriesDoNotAllocate(t *testing.T) {
 // and 0.3 at n = 10k. The brute-force k-nearest sorts every distance, as
 // the oracle does.
 
-var benchSizes = []int{10_000, 100_000}
+var kdBenchSizes = []int{10_000, 100_000}
 
 func BenchmarkKDTreeBuild(b *testing.B) {
-	for _, n := range benchSizes {
-		pts := uniformCloud(rand.New(rand.NewPCG(1, uint64(n))), n)
+	for _, n := range kdBenchSizes {
+		pts := kdUniformCloud(rand.New(rand.NewPCG(1, uint64(n))), n)
 		b.Run(fmt.Sprintf("n=%d", n), func(b *testing.B) {
 			for b.Loop() {
 				NewKDTree(pts)
@@ -378,19 +378,19 @@ func BenchmarkKDTreeBuild(b *testing.B) {
 	}
 }
 
-func benchQueries(b *testing.B, run func(b *testing.B, pts []r3.Vec, tree *KDTree, qs []r3.Vec)) {
-	for _, n := range benchSizes {
+func kdBenchQueries(b *testing.B, run func(b *testing.B, pts []r3.Vec, tree *KDTree, qs []r3.Vec)) {
+	for _, n := range kdBenchSizes {
 		rng := rand.New(rand.NewPCG(2, uint64(n)))
-		pts := uniformCloud(rng, n)
+		pts := kdUniformCloud(rng, n)
 		tree := NewKDTree(pts)
-		qs := uniformCloud(rng, 1024)
+		qs := kdUniformCloud(rng, 1024)
 		b.Run(fmt.Sprintf("tree/n=%d", n), func(b *testing.B) { run(b, pts, tree, qs) })
 		b.Run(fmt.Sprintf("brute/n=%d", n), func(b *testing.B) { run(b, pts, nil, qs) })
 	}
 }
 
 func BenchmarkKDTreeNearest(b *testing.B) {
-	benchQueries(b, func(b *testing.B, pts []r3.Vec, tree *KDTree, qs []r3.Vec) {
+	kdBenchQueries(b, func(b *testing.B, pts []r3.Vec, tree *KDTree, qs []r3.Vec) {
 		i := 0
 		for b.Loop() {
 			q := qs[i%len(qs)]
@@ -398,14 +398,14 @@ func BenchmarkKDTreeNearest(b *testing.B) {
 			if tree != nil {
 				tree.Nearest(q)
 			} else {
-				bruteNearest(pts, q)
+				kdOracleNearest(pts, q)
 			}
 		}
 	})
 }
 
 func BenchmarkKDTreeKNearest10(b *testing.B) {
-	benchQueries(b, func(b *testing.B, pts []r3.Vec, tree *KDTree, qs []r3.Vec) {
+	kdBenchQueries(b, func(b *testing.B, pts []r3.Vec, tree *KDTree, qs []r3.Vec) {
 		buf := make([]Neighbor, 0, 10)
 		i := 0
 		for b.Loop() {
@@ -414,14 +414,14 @@ func BenchmarkKDTreeKNearest10(b *testing.B) {
 			if tree != nil {
 				buf = tree.KNearest(q, 10, buf)
 			} else {
-				bruteKNearest(pts, q, 10)
+				kdOracleKNearest(pts, q, 10)
 			}
 		}
 	})
 }
 
 func BenchmarkKDTreeRadius(b *testing.B) {
-	benchQueries(b, func(b *testing.B, pts []r3.Vec, tree *KDTree, qs []r3.Vec) {
+	kdBenchQueries(b, func(b *testing.B, pts []r3.Vec, tree *KDTree, qs []r3.Vec) {
 		buf := make([]int, 0, 64)
 		i := 0
 		for b.Loop() {
@@ -430,7 +430,7 @@ func BenchmarkKDTreeRadius(b *testing.B) {
 			if tree != nil {
 				buf = tree.Radius(q, 0.02, buf)
 			} else {
-				bruteRadius(pts, q, 0.02)
+				kdOracleRadius(pts, q, 0.02)
 			}
 		}
 	})
