@@ -3,6 +3,9 @@ package mesh
 import (
 	"fmt"
 	"math"
+	"runtime"
+	"sync"
+	"sync/atomic"
 
 	"gonum.org/v1/gonum/mat"
 	"gonum.org/v1/gonum/spatial/r3"
@@ -174,16 +177,97 @@ type ICPResult struct {
 	Converged   bool    // the last step was below the stop thresholds
 }
 
+// PlaneSystem accumulates the normal equations of one step of
+// point-to-plane alignment linearised for small motions (Low 2004, UNC
+// TR04-004): for a moved point p paired with a destination point q of
+// normal n, the residual (p − q)·n changes by ω·(p × n) + t·n under a
+// small rotation ω about the origin and a translation t. The zero value
+// is empty and ready; systems built in parallel over parts of the data
+// are combined with Merge (in a fixed order, for deterministic sums).
+type PlaneSystem struct {
+	a [21]float64 // upper triangle of JᵀWJ, row-major
+	b [6]float64  // JᵀWr
+	// SSE and W are the weighted sum of squared residuals and of weights;
+	// Pairs counts the pairs added.
+	SSE, W float64
+	Pairs  int
+}
+
+// Add adds the pair (p, q) with destination normal n and weight w.
+func (s *PlaneSystem) Add(p, q, n r3.Vec, w float64) {
+	r := r3.Dot(r3.Sub(p, q), n)
+	c := r3.Cross(p, n)
+	jr := [6]float64{c.X, c.Y, c.Z, n.X, n.Y, n.Z}
+	k := 0
+	for u := 0; u < 6; u++ {
+		wu := w * jr[u]
+		for v := u; v < 6; v++ {
+			s.a[k] += wu * jr[v]
+			k++
+		}
+		s.b[u] += wu * r
+	}
+	s.SSE += w * r * r
+	s.W += w
+	s.Pairs++
+}
+
+// Merge adds o's sums to s.
+func (s *PlaneSystem) Merge(o *PlaneSystem) {
+	for k := range s.a {
+		s.a[k] += o.a[k]
+	}
+	for k := range s.b {
+		s.b[k] += o.b[k]
+	}
+	s.SSE += o.SSE
+	s.W += o.W
+	s.Pairs += o.Pairs
+}
+
+// RMS returns the weighted root-mean-square residual.
+func (s *PlaneSystem) RMS() float64 {
+	if s.W == 0 {
+		return 0
+	}
+	return math.Sqrt(s.SSE / s.W)
+}
+
+// Step solves the system and returns the small motion that reduces the
+// residuals, as a pose to apply after the current one
+// (current ← step.Mul(current)), with its rotation angle and translation
+// length. damping ≥ 0 adds damping·I to JᵀWJ (Tikhonov regularisation):
+// directions the pairs do not constrain then stay put instead of
+// wandering with the noise. It reports false when the system is singular.
+func (s *PlaneSystem) Step(damping float64) (step Pose, angle, shift float64, ok bool) {
+	a := s.a
+	if damping > 0 {
+		k := 0
+		for u := 0; u < 6; u++ {
+			a[k] += damping
+			k += 6 - u
+		}
+	}
+	x, ok := solve6(a, s.b)
+	if !ok {
+		return Identity(), 0, 0, false
+	}
+	omega := r3.Vec{X: -x[0], Y: -x[1], Z: -x[2]}
+	dt := r3.Vec{X: -x[3], Y: -x[4], Z: -x[5]}
+	angle = r3.Norm(omega)
+	return Pose{R: RotationFromAxisAngle(omega, angle), T: dt}, angle, r3.Norm(dt), true
+}
+
 // ICPPointToPlane refines init, a pose mapping src into the frame of dst,
 // by point-to-plane ICP (Chen & Medioni 1992, DOI
 // 10.1016/0262-8856(92)90066-C) with the small-angle linearisation of
-// Low (2004, UNC TR04-004): each step minimises
-// Σ wᵢ((R·pᵢ + t − qᵢ)·nᵢ)² over the rotation vector ω and translation t
-// by the 6×6 normal equations, with qᵢ the nearest destination point and
-// nᵢ its normal. dst must have normals; near is a nearest-neighbour index
-// over dst.Points (NewKDTree(dst.Points)). Pairs farther than
-// MaxDistance, or whose normals (when src has them) differ by more than
-// MaxNormalAngle, are rejected.
+// Low (2004): each step minimises Σ wᵢ((R·pᵢ + t − qᵢ)·nᵢ)² (PlaneSystem)
+// with qᵢ the nearest destination point and nᵢ its normal. dst must have
+// normals; near is a nearest-neighbour index over dst.Points
+// (NewKDTree(dst.Points)). Pairs farther than MaxDistance, or whose
+// normals (when src has them) differ by more than MaxNormalAngle, are
+// rejected. The pairing runs in parallel over fixed slices of src whose
+// sums are merged in order, so the result does not depend on timing.
 func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOptions) (ICPResult, error) {
 	if len(dst.Normals) != len(dst.Points) {
 		return ICPResult{}, fmt.Errorf("mesh: point-to-plane ICP needs destination normals (%d for %d points)", len(dst.Normals), len(dst.Points))
@@ -199,66 +283,83 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 	maxD2 := opt.MaxDistance * opt.MaxDistance
 	pose := init
 	res := ICPResult{Pose: pose}
+	// Fixed slices: the same partition whatever GOMAXPROCS is, so the
+	// floating-point sums are always added in the same order.
+	const slice = 512
+	parts := make([]PlaneSystem, (len(src.Points)+slice-1)/slice)
 	for it := 0; it < opt.MaxIterations; it++ {
-		var a [21]float64 // upper triangle of JᵀWJ, row-major
-		var b [6]float64  // JᵀWr
-		var sse, sw float64
-		pairs := 0
-		for i, s := range src.Points {
-			p := pose.Apply(s)
-			j, d2 := near.Nearest(p)
-			if j < 0 || d2 > maxD2 {
-				continue
-			}
-			n := dst.Normals[j]
-			if useNormals && r3.Dot(pose.Rotate(src.Normals[i]), n) < cosMax {
-				continue
-			}
-			r := r3.Dot(r3.Sub(p, dst.Points[j]), n)
-			w := 1.0
-			if opt.HuberDelta > 0 && math.Abs(r) > opt.HuberDelta {
-				w = opt.HuberDelta / math.Abs(r)
-			}
-			c := r3.Cross(p, n)
-			jr := [6]float64{c.X, c.Y, c.Z, n.X, n.Y, n.Z}
-			k := 0
-			for u := 0; u < 6; u++ {
-				wu := w * jr[u]
-				for v := u; v < 6; v++ {
-					a[k] += wu * jr[v]
-					k++
+		parallelFor(len(parts), func(k int) {
+			sys := &parts[k]
+			*sys = PlaneSystem{}
+			for i := k * slice; i < min((k+1)*slice, len(src.Points)); i++ {
+				p := pose.Apply(src.Points[i])
+				j, d2 := near.Nearest(p)
+				if j < 0 || d2 > maxD2 {
+					continue
 				}
-				b[u] += wu * r
+				n := dst.Normals[j]
+				if useNormals && r3.Dot(pose.Rotate(src.Normals[i]), n) < cosMax {
+					continue
+				}
+				w := 1.0
+				if opt.HuberDelta > 0 {
+					if r := math.Abs(r3.Dot(r3.Sub(p, dst.Points[j]), n)); r > opt.HuberDelta {
+						w = opt.HuberDelta / r
+					}
+				}
+				sys.Add(p, dst.Points[j], n, w)
 			}
-			sse += w * r * r
-			sw += w
-			pairs++
+		})
+		var sys PlaneSystem
+		for k := range parts {
+			sys.Merge(&parts[k])
 		}
-		res.Pairs = pairs
-		res.InlierRatio = float64(pairs) / float64(len(src.Points))
-		if sw > 0 {
-			res.RMS = math.Sqrt(sse / sw)
+		res.Pairs = sys.Pairs
+		res.InlierRatio = float64(sys.Pairs) / float64(len(src.Points))
+		res.RMS = sys.RMS()
+		if sys.Pairs < opt.MinPairs {
+			return res, fmt.Errorf("mesh: ICP step %d found %d pairs within %.4g m, need %d: %w", it+1, sys.Pairs, opt.MaxDistance, opt.MinPairs, ErrDegenerate)
 		}
-		if pairs < opt.MinPairs {
-			return res, fmt.Errorf("mesh: ICP step %d found %d pairs within %.4g m, need %d: %w", it+1, pairs, opt.MaxDistance, opt.MinPairs, ErrDegenerate)
-		}
-		x, ok := solve6(a, b)
+		step, angle, shift, ok := sys.Step(0)
 		if !ok {
 			return res, fmt.Errorf("mesh: ICP step %d: the pairs do not constrain all six degrees of freedom: %w", it+1, ErrDegenerate)
 		}
-		omega := r3.Vec{X: -x[0], Y: -x[1], Z: -x[2]}
-		dt := r3.Vec{X: -x[3], Y: -x[4], Z: -x[5]}
-		angle := r3.Norm(omega)
-		step := Pose{R: RotationFromAxisAngle(omega, angle), T: dt}
 		pose = step.Mul(pose).Orthonormalize()
 		res.Pose = pose
 		res.Iterations = it + 1
-		if angle < opt.StopRotation && r3.Norm(dt) < opt.StopTranslation {
+		if angle < opt.StopRotation && shift < opt.StopTranslation {
 			res.Converged = true
 			break
 		}
 	}
 	return res, nil
+}
+
+// parallelFor runs f(0) … f(n−1) on up to GOMAXPROCS goroutines.
+func parallelFor(n int, f func(i int)) {
+	workers := min(runtime.GOMAXPROCS(0), n)
+	if workers <= 1 {
+		for i := 0; i < n; i++ {
+			f(i)
+		}
+		return
+	}
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for w := 0; w < workers; w++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for {
+				i := int(next.Add(1)) - 1
+				if i >= n {
+					return
+				}
+				f(i)
+			}
+		}()
+	}
+	wg.Wait()
 }
 
 // solve6 solves the symmetric 6×6 system A·x = b, A given by its upper
