@@ -68,7 +68,7 @@
 // (x right, y down, z forward). For a turntable sweep the part is taken
 // as it stood at frame 0: frame i's plate has turned by
 // s·(θᵢ − θ₀) about the axis since then (s = +1 for "ccw", −1 for
-// "cw"), and its CamToWorld pose is TurntableCamToWorld of that angle.
+// "cw"), and its CamToWorld pose is TurntablePose of that angle.
 // A handheld sweep's cam_to_world poses are in this frame too, so frame
 // 0's, when given, is the identity up to the tracker's noise.
 //

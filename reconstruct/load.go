@@ -14,8 +14,6 @@ import (
 	"os"
 	"strings"
 
-	"gonum.org/v1/gonum/spatial/r3"
-
 	"github.com/scanfold/scanfold/mesh"
 )
 
@@ -74,7 +72,7 @@ type Frame struct {
 	HasAngle bool
 	// CamToWorld is the camera pose in the sweep's world frame when
 	// HasPose: from the manifest for a handheld sweep, or from the
-	// turntable angle and the calibrated axis (TurntableCamToWorld) when
+	// turntable angle and the calibrated axis (TurntablePose) when
 	// both are known.
 	CamToWorld mesh.Pose
 	HasPose    bool
@@ -173,18 +171,6 @@ func (s *Sweep) Frame(i int) (*Frame, error) {
 	return f, nil
 }
 
-// TurntableCamToWorld returns the CamToWorld pose of a turntable frame
-// whose plate has turned by turned radians (right-handed about
-// axis.Direction) since frame 0. Frame 0's camera frame, with the part
-// as it stood then, is the world frame: a point x of the part at frame
-// 0 is seen at R(d, turned)·(x − p) + p in the later frame (p a point
-// on the axis, d its direction), and the camera pose is the inverse of
-// that map.
-func TurntableCamToWorld(axis Axis, turned float64) mesh.Pose {
-	r := mesh.RotationFromAxisAngle(axis.Direction, -turned)
-	return mesh.Pose{R: r, T: r3.Sub(axis.Point, r.MulVec(axis.Point))}
-}
-
 // framePose works out what the manifest says about frame i's pose.
 func (s *Sweep) framePose(i int, f *Frame) error {
 	m := s.Manifest
@@ -196,7 +182,7 @@ func (s *Sweep) framePose(i int, f *Frame) error {
 		f.Angle, f.HasAngle = *e.Angle, true
 		ref := m.Frames[0].Angle
 		if t := m.Turntable; t != nil && t.Axis != nil && ref != nil && finite(*ref) {
-			f.CamToWorld = TurntableCamToWorld(*t.Axis, float64(t.AngleSign)*(*e.Angle-*ref))
+			f.CamToWorld = TurntablePose(t.Axis.Point, t.Axis.Direction, float64(t.AngleSign)*(*e.Angle-*ref))
 			f.HasPose = true
 		}
 	}
@@ -447,4 +433,22 @@ func unwrapPath(err error) error {
 		return pe.Err
 	}
 	return err
+}
+
+// DepthImage returns the frame as TSDF integration takes it: the same
+// depth slice and the colour as packed RGB (alpha dropped).
+func (f *Frame) DepthImage() *DepthImage {
+	n := f.Intr.Width * f.Intr.Height
+	im := &DepthImage{Intr: f.Intr, Depth: f.Depth}
+	if f.Color != nil {
+		im.Color = make([]uint8, 3*n)
+		w := f.Intr.Width
+		for y := 0; y < f.Intr.Height; y++ {
+			row := f.Color.Pix[y*f.Color.Stride:]
+			for x := 0; x < w; x++ {
+				copy(im.Color[3*(y*w+x):3*(y*w+x)+3], row[4*x:4*x+3])
+			}
+		}
+	}
+	return im
 }

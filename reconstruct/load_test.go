@@ -133,6 +133,14 @@ func TestSweepRoundTrip(t *testing.T) {
 				if !bytes.Equal(f.Color.Pix, ts.colors[i].Pix) {
 					t.Fatalf("frame %d: colour differs after the round trip", i)
 				}
+				im := f.DepthImage()
+				if err := im.check(); err != nil {
+					t.Fatal(err)
+				}
+				last := len(f.Depth) - 1
+				if got, want := im.Color[3*last:3*last+3], ts.colors[i].Pix[4*last:4*last+3]; !bytes.Equal(got, want) {
+					t.Errorf("frame %d: DepthImage colour of the last pixel %v, want %v", i, got, want)
+				}
 				e := ts.m.Frames[i]
 				if !f.HasTime || f.Time != *e.Time {
 					t.Errorf("frame %d: time %v (%v), want %v", i, f.Time, f.HasTime, *e.Time)
@@ -161,7 +169,7 @@ func TestSweepRoundTrip(t *testing.T) {
 }
 
 // TestTurntablePoseFromAxis checks that a calibrated turntable sweep
-// gives every frame the pose TurntableCamToWorld predicts, and that a
+// gives every frame the pose TurntablePose predicts, and that a
 // point of the part maps back onto itself.
 func TestTurntablePoseFromAxis(t *testing.T) {
 	ts := newTestSweep(RigTurntable, 4, 8, 6, 3)
