@@ -3,12 +3,11 @@ package mesh
 import (
 	"fmt"
 	"math"
-	"runtime"
-	"sync"
-	"sync/atomic"
 
 	"gonum.org/v1/gonum/mat"
 	"gonum.org/v1/gonum/spatial/r3"
+
+	"github.com/scanfold/scanfold/internal/par"
 )
 
 // FitRigid returns the rigid pose P minimising Σ wᵢ‖P·srcᵢ − dstᵢ‖²
@@ -288,7 +287,7 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 	const slice = 512
 	parts := make([]PlaneSystem, (len(src.Points)+slice-1)/slice)
 	for it := 0; it < opt.MaxIterations; it++ {
-		parallelFor(len(parts), func(k int) {
+		par.For(len(parts), 0, func(k int) {
 			sys := &parts[k]
 			*sys = PlaneSystem{}
 			for i := k * slice; i < min((k+1)*slice, len(src.Points)); i++ {
@@ -333,33 +332,6 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 		}
 	}
 	return res, nil
-}
-
-// parallelFor runs f(0) … f(n−1) on up to GOMAXPROCS goroutines.
-func parallelFor(n int, f func(i int)) {
-	workers := min(runtime.GOMAXPROCS(0), n)
-	if workers <= 1 {
-		for i := 0; i < n; i++ {
-			f(i)
-		}
-		return
-	}
-	var next atomic.Int64
-	var wg sync.WaitGroup
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			for {
-				i := int(next.Add(1)) - 1
-				if i >= n {
-					return
-				}
-				f(i)
-			}
-		}()
-	}
-	wg.Wait()
 }
 
 // solve6 solves the symmetric 6×6 system A·x = b, A given by its upper

@@ -3,11 +3,10 @@ package reconstruct
 import (
 	"context"
 	"math"
-	"runtime"
-	"sync"
 
 	"gonum.org/v1/gonum/spatial/r3"
 
+	"github.com/scanfold/scanfold/internal/par"
 	"github.com/scanfold/scanfold/mesh"
 )
 
@@ -133,36 +132,23 @@ func (v *Volume) Raycast(ctx context.Context, intr mesh.Intrinsics, camToWorld m
 	}
 	dst.Intr = intr
 	lo, hi, ok := v.bounds()
-	workers := runtime.GOMAXPROCS(0)
-	if v.opt.Workers > 0 {
-		workers = v.opt.Workers
-	}
-	var wg sync.WaitGroup
-	rows := intr.Height
-	for w := 0; w < workers; w++ {
-		wg.Add(1)
-		go func(w int) {
-			defer wg.Done()
-			s := sampler{v: v}
-			for y := w; y < rows; y += workers {
-				if ctx.Err() != nil {
-					return
-				}
-				for x := 0; x < intr.Width; x++ {
-					i := y*intr.Width + x
-					dst.Points[i], dst.Normals[i] = r3.Vec{}, r3.Vec{}
-					if !ok {
-						continue
-					}
-					ray := camToWorld.Rotate(mesh.Normalize(intr.Ray(float64(x), float64(y))))
-					if p, nrm, hit := s.castRay(camToWorld.T, ray, lo, hi); hit {
-						dst.Points[i], dst.Normals[i] = p, nrm
-					}
-				}
+	par.For(intr.Height, v.opt.Workers, func(y int) {
+		if ctx.Err() != nil {
+			return
+		}
+		s := sampler{v: v}
+		for x := 0; x < intr.Width; x++ {
+			i := y*intr.Width + x
+			dst.Points[i], dst.Normals[i] = r3.Vec{}, r3.Vec{}
+			if !ok {
+				continue
 			}
-		}(w)
-	}
-	wg.Wait()
+			ray := camToWorld.Rotate(mesh.Normalize(intr.Ray(float64(x), float64(y))))
+			if p, nrm, hit := s.castRay(camToWorld.T, ray, lo, hi); hit {
+				dst.Points[i], dst.Normals[i] = p, nrm
+			}
+		}
+	})
 	return dst
 }
 

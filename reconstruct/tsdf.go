@@ -4,13 +4,11 @@ import (
 	"context"
 	"fmt"
 	"math"
-	"runtime"
 	"slices"
-	"sync"
-	"sync/atomic"
 
 	"gonum.org/v1/gonum/spatial/r3"
 
+	"github.com/scanfold/scanfold/internal/par"
 	"github.com/scanfold/scanfold/mesh"
 )
 
@@ -222,34 +220,16 @@ func (v *Volume) Integrate(ctx context.Context, im *DepthImage, camToWorld mesh.
 	worldToCam := camToWorld.Inv()
 	v.keys = v.frustumBlocks(v.keys[:0], im.Intr, worldToCam)
 	st.UpdatedBlocks = len(v.keys)
-	workers := min(v.workers(), max(1, len(v.keys)/4))
-	counts := make([]int, workers)
-	var next atomic.Int64
 	const chunk = 8
-	run := func(w int) {
-		for ctx.Err() == nil {
-			i := int(next.Add(chunk)) - chunk
-			if i >= len(v.keys) {
-				return
-			}
-			for _, k := range v.keys[i:min(i+chunk, len(v.keys))] {
-				counts[w] += v.integrateBlock(k, v.blocks[k], im, worldToCam)
-			}
+	counts := make([]int, (len(v.keys)+chunk-1)/chunk)
+	par.For(len(counts), v.opt.Workers, func(c int) {
+		if ctx.Err() != nil {
+			return
 		}
-	}
-	if workers == 1 {
-		run(0)
-	} else {
-		var wg sync.WaitGroup
-		for w := 0; w < workers; w++ {
-			wg.Add(1)
-			go func(w int) {
-				defer wg.Done()
-				run(w)
-			}(w)
+		for _, k := range v.keys[c*chunk : min((c+1)*chunk, len(v.keys))] {
+			counts[c] += v.integrateBlock(k, v.blocks[k], im, worldToCam)
 		}
-		wg.Wait()
-	}
+	})
 	if err := ctx.Err(); err != nil {
 		return st, err
 	}
@@ -257,13 +237,6 @@ func (v *Volume) Integrate(ctx context.Context, im *DepthImage, camToWorld mesh.
 		st.Updates += c
 	}
 	return st, nil
-}
-
-func (v *Volume) workers() int {
-	if v.opt.Workers > 0 {
-		return v.opt.Workers
-	}
-	return runtime.GOMAXPROCS(0)
 }
 
 // KeyOf returns the key of the block holding world point p.
