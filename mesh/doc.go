@@ -28,9 +28,14 @@
 // vector (never NaN); an empty mesh or cloud has zero area, volume and
 // diameter and an empty bounding box (Box.Empty reports it); faces with
 // a repeated vertex index or zero area contribute nothing to metrics and
-// are removed by clean-up. Functions that cannot give a meaningful
-// answer for degenerate input (fewer than three non-collinear points for
-// an alignment, say) return an error wrapping ErrDegenerate.
+// are removed by clean-up. The topology queries (edges, watertightness,
+// orientation, Euler characteristic) skip faces with a repeated index
+// but keep zero-area faces with three distinct indices, which still
+// close a surface combinatorially. Bounding boxes, diameters and the
+// k-d tree ignore points with a NaN or infinite coordinate. Functions
+// that cannot give a meaningful answer for degenerate input (fewer than
+// three non-collinear points for an alignment, say) return an error
+// wrapping ErrDegenerate.
 //
 // Programmer errors (mismatched slice lengths passed to a function that
 // documents them) panic; anything that comes from data returns an error.
