@@ -72,8 +72,7 @@
 // # Degenerate input
 //
 // Get with an unknown name returns an error listing the known names.
-// Part.Mesh rejects a non-finite or non-positive spacing and one so fine
-// that the sampling grid would exceed MaxGridSamples. SDF and Color
+// SDF and Color
 // accept any finite point; a point with a NaN coordinate gives NaN
 // distance and an unspecified colour.
 package parts

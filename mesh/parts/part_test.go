@@ -419,3 +419,51 @@ func TestHSVHelper(t *testing.T) {
 		}
 	}
 }
+
+// BenchmarkSDF and BenchmarkColor time one evaluation at points spread
+// over the part's bounds, the inner loop of grid sampling.
+func BenchmarkSDF(b *testing.B) {
+	for _, p := range All() {
+		pts := benchPoints(p)
+		b.Run(p.Name, func(b *testing.B) {
+			s := 0.0
+			i := 0
+			for b.Loop() {
+				s += p.SDF(pts[i&1023])
+				i++
+			}
+			sinkF = s
+		})
+	}
+}
+
+func BenchmarkColor(b *testing.B) {
+	for _, p := range All() {
+		pts := benchPoints(p)
+		b.Run(p.Name, func(b *testing.B) {
+			i := 0
+			for b.Loop() {
+				sinkC = p.Color(pts[i&1023])
+				i++
+			}
+		})
+	}
+}
+
+var (
+	sinkF float64
+	sinkC mesh.RGB
+)
+
+func benchPoints(p *Part) []r3.Vec {
+	pts := make([]r3.Vec, 1024)
+	for i := range pts {
+		f := func(k int) float64 { return float64((i*k)%1024) / 1024 }
+		pts[i] = r3.Vec{
+			X: p.Min.X + f(7)*(p.Max.X-p.Min.X),
+			Y: p.Min.Y + f(13)*(p.Max.Y-p.Min.Y),
+			Z: p.Min.Z + f(29)*(p.Max.Z-p.Min.Z),
+		}
+	}
+	return pts
+}
