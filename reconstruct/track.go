@@ -1,0 +1,345 @@
+package reconstruct
+
+import (
+	"context"
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/spatial/r3"
+
+	"github.com/scanfold/scanfold/internal/par"
+	"github.com/scanfold/scanfold/mesh"
+)
+
+// pyramidLevels is the depth of the coarse-to-fine pyramid
+// (KinectFusion: Newcombe et al. 2011).
+const pyramidLevels = 3
+
+// TrackOptions tunes frame-to-model tracking.
+type TrackOptions struct {
+	// Iterations per pyramid level, finest first. KinectFusion uses 10, 5
+	// and 4 (from memory); the finest level here pairs every second pixel.
+	// DEFAULT: {6, 5, 4}
+	Iterations [pyramidLevels]int
+	// MaxDistance rejects pairs farther apart (metres), finest first.
+	// DEFAULT: {0.01, 0.02, 0.04}
+	MaxDistance [pyramidLevels]float64
+	// MaxNormalAngle rejects pairs whose normals differ more (radians).
+	// DEFAULT: 30° (0.5236)
+	MaxNormalAngle float64
+	// ModelScale is the downsampling of the raycast model map relative to
+	// the input image (2: a 640×480 sweep raycasts at 320×240).
+	// DEFAULT: 2
+	ModelScale int
+	// MinInlierRatio: below this share of valid pixels paired at the
+	// finest level, tracking is lost.
+	// DEFAULT: 0.3
+	MinInlierRatio float64
+	// MaxRMS: above this point-to-plane residual (metres) at the finest
+	// level, tracking is lost.
+	// DEFAULT: 0.006
+	MaxRMS float64
+	// MaxShift and MaxTurn: a frame that moves farther than these from
+	// the prediction is lost (a jump no hand makes in one frame).
+	// DEFAULT: 0.08 m, 20° (0.349 rad)
+	MaxShift, MaxTurn float64
+	// Damping regularises each step (PlaneSystem.Step), in units of the
+	// normal matrix; it keeps directions that the scene does not constrain
+	// from drifting.
+	// DEFAULT: 1e-6
+	Damping float64
+	// Workers bounds the goroutines; 0 means all cores.
+	// DEFAULT: 0
+	Workers int
+}
+
+// DefaultTrackOptions returns the documented defaults.
+func DefaultTrackOptions() TrackOptions {
+	return TrackOptions{
+		Iterations:     [pyramidLevels]int{6, 5, 4},
+		MaxDistance:    [pyramidLevels]float64{0.01, 0.02, 0.04},
+		MaxNormalAngle: 30 * math.Pi / 180,
+		ModelScale:     2,
+		MinInlierRatio: 0.3,
+		MaxRMS:         0.006,
+		MaxShift:       0.08,
+		MaxTurn:        20 * math.Pi / 180,
+		Damping:        1e-6,
+	}
+}
+
+// TrackResult is the outcome of tracking one frame.
+type TrackResult struct {
+	CamToWorld  mesh.Pose
+	Lost        bool   // the frame could not be placed; CamToWorld is the prediction
+	Reason      string // why it was lost
+	RMS         float64
+	InlierRatio float64
+	Pairs       int
+}
+
+// level is one pyramid level of the incoming frame: camera-frame vertex
+// and normal maps (zero normal = invalid).
+type level struct {
+	intr  mesh.Intrinsics
+	depth []float32
+	vert  []r3.Vec
+	norm  []r3.Vec
+	valid int
+}
+
+// Tracker places depth frames against a TSDF volume by point-to-plane
+// ICP with projective data association (Newcombe et al. 2011, ISMAR,
+// DOI 10.1109/ISMAR.2011.6092378): the volume is raycast from the last
+// placed pose into a model map; every pixel of the new frame, moved by
+// the current estimate, is projected into that map and paired with the
+// model point and normal found there; each step solves the 6×6
+// linearised system (Low 2004) and the pyramid runs coarse to fine.
+type Tracker struct {
+	vol       *Volume
+	intr      mesh.Intrinsics
+	opt       TrackOptions
+	levels    [pyramidLevels]level
+	model     *ModelMap
+	modelPose mesh.Pose
+	hasModel  bool
+	parts     []mesh.PlaneSystem
+}
+
+// NewTracker returns a tracker over vol for frames of intrinsics intr.
+func NewTracker(vol *Volume, intr mesh.Intrinsics, opt TrackOptions) (*Tracker, error) {
+	if err := intr.Validate(); err != nil {
+		return nil, fmt.Errorf("reconstruct: tracker: %w", err)
+	}
+	if opt.ModelScale < 1 {
+		opt.ModelScale = 1
+	}
+	t := &Tracker{vol: vol, intr: intr, opt: opt}
+	for l := 0; l < pyramidLevels; l++ {
+		li := intr.Scaled(1 << l)
+		n := li.Width * li.Height
+		t.levels[l] = level{intr: li, depth: make([]float32, n), vert: make([]r3.Vec, n), norm: make([]r3.Vec, n)}
+	}
+	return t, nil
+}
+
+// UpdateModel raycasts the volume from camToWorld; the next Track pairs
+// against it. Call it after integrating each placed frame.
+func (t *Tracker) UpdateModel(ctx context.Context, camToWorld mesh.Pose) {
+	t.model = t.vol.Raycast(ctx, t.intr.Scaled(t.opt.ModelScale), camToWorld, t.model)
+	t.modelPose = camToWorld
+	t.hasModel = true
+}
+
+// Track places depth (metres, the tracker's intrinsics) starting from
+// predicted, a CamToWorld guess (the last pose, or a constant-velocity
+// extrapolation). A frame that cannot be placed comes back Lost with the
+// reason, and is not to be integrated.
+func (t *Tracker) Track(ctx context.Context, depth []float32, predicted mesh.Pose) (TrackResult, error) {
+	if !t.hasModel {
+		return TrackResult{}, fmt.Errorf("reconstruct: Track before UpdateModel")
+	}
+	if len(depth) != t.intr.Width*t.intr.Height {
+		return TrackResult{}, fmt.Errorf("reconstruct: depth has %d pixels, tracker expects %d×%d", len(depth), t.intr.Width, t.intr.Height)
+	}
+	t.buildPyramid(depth)
+	pose := predicted
+	res := TrackResult{CamToWorld: predicted}
+	cosMax := math.Cos(t.opt.MaxNormalAngle)
+	worldToModel := t.modelPose.Inv()
+	for l := pyramidLevels - 1; l >= 0; l-- {
+		lv := &t.levels[l]
+		step := 1
+		if l == 0 {
+			step = 2 // every second pixel of the full image is plenty
+		}
+		for it := 0; it < t.opt.Iterations[l]; it++ {
+			if err := ctx.Err(); err != nil {
+				return res, err
+			}
+			sys := t.associate(lv, pose, worldToModel, t.opt.MaxDistance[l], cosMax, step)
+			if sys.Pairs < 30 {
+				res.Lost, res.Reason = true, fmt.Sprintf("only %d pixel pairs at pyramid level %d", sys.Pairs, l)
+				return res, nil
+			}
+			st, angle, shift, ok := sys.Step(t.opt.Damping * sys.W)
+			if !ok {
+				res.Lost, res.Reason = true, "the scene does not constrain the camera (degenerate point-to-plane system)"
+				return res, nil
+			}
+			pose = st.Mul(pose).Orthonormalize()
+			if angle < 1e-6 && shift < 1e-6 {
+				break
+			}
+		}
+	}
+	sys := t.associate(&t.levels[0], pose, worldToModel, t.opt.MaxDistance[0], cosMax, 2)
+	res.CamToWorld = pose
+	res.Pairs = sys.Pairs
+	res.RMS = sys.RMS()
+	res.InlierRatio = float64(sys.Pairs) / math.Max(1, float64(t.levels[0].valid)/4)
+	moved := predicted.Inv().Mul(pose)
+	_, turn := moved.AxisAngle()
+	switch {
+	case res.InlierRatio < t.opt.MinInlierRatio:
+		res.Lost, res.Reason = true, fmt.Sprintf("only %.0f%% of the frame matched the model (need %.0f%%)", 100*res.InlierRatio, 100*t.opt.MinInlierRatio)
+	case res.RMS > t.opt.MaxRMS:
+		res.Lost, res.Reason = true, fmt.Sprintf("residual %.1f mm above %.1f mm", res.RMS*1000, t.opt.MaxRMS*1000)
+	case r3.Norm(moved.T) > t.opt.MaxShift || turn > t.opt.MaxTurn:
+		res.Lost, res.Reason = true, fmt.Sprintf("jump of %.0f mm / %.1f° from the prediction", r3.Norm(moved.T)*1000, turn*180/math.Pi)
+	}
+	if res.Lost {
+		res.CamToWorld = predicted
+	}
+	return res, nil
+}
+
+// associate pairs the pixels of lv (every step-th in both directions)
+// moved by camToWorld with the model map and returns the summed system.
+func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD, cosMax float64, step int) mesh.PlaneSystem {
+	rows := (lv.intr.Height + step - 1) / step
+	const rowsPerPart = 8
+	nParts := (rows + rowsPerPart - 1) / rowsPerPart
+	if cap(t.parts) < nParts {
+		t.parts = make([]mesh.PlaneSystem, nParts)
+	}
+	parts := t.parts[:nParts]
+	mi := t.model.Intr
+	maxD2 := maxD * maxD
+	par.For(nParts, t.opt.Workers, func(k int) {
+		sys := &parts[k]
+		*sys = mesh.PlaneSystem{}
+		for r := k * rowsPerPart; r < min((k+1)*rowsPerPart, rows); r++ {
+			y := r * step
+			for x := 0; x < lv.intr.Width; x += step {
+				i := y*lv.intr.Width + x
+				n := lv.norm[i]
+				if n == (r3.Vec{}) {
+					continue
+				}
+				p := camToWorld.Apply(lv.vert[i])
+				pm := worldToModel.Apply(p)
+				if pm.Z <= 0 {
+					continue
+				}
+				u := int(math.Floor(mi.Fx*pm.X/pm.Z + mi.Cx + 0.5))
+				v := int(math.Floor(mi.Fy*pm.Y/pm.Z + mi.Cy + 0.5))
+				if u < 0 || v < 0 || u >= mi.Width || v >= mi.Height {
+					continue
+				}
+				j := v*mi.Width + u
+				nq := t.model.Normals[j]
+				if nq == (r3.Vec{}) {
+					continue
+				}
+				q := t.model.Points[j]
+				if r3.Norm2(r3.Sub(p, q)) > maxD2 || r3.Dot(camToWorld.Rotate(n), nq) < cosMax {
+					continue
+				}
+				sys.Add(p, q, nq, 1)
+			}
+		}
+	})
+	var sum mesh.PlaneSystem
+	for k := range parts {
+		sum.Merge(&parts[k])
+	}
+	return sum
+}
+
+// buildPyramid fills the levels from a full-resolution depth image:
+// each coarser depth averages the valid pixels of a 2×2 block that lie
+// within 3σ_z of the block's nearest one (so edges are not blurred
+// across a depth jump), and vertex and normal maps follow.
+func (t *Tracker) buildPyramid(depth []float32) {
+	copy(t.levels[0].depth, depth)
+	for l := 1; l < pyramidLevels; l++ {
+		src, dst := &t.levels[l-1], &t.levels[l]
+		sw := src.intr.Width
+		for y := 0; y < dst.intr.Height; y++ {
+			for x := 0; x < dst.intr.Width; x++ {
+				var zs [4]float32
+				near := float32(math.Inf(1))
+				for k := 0; k < 4; k++ {
+					z := src.depth[(2*y+k/2)*sw+2*x+k%2]
+					zs[k] = z
+					if z > 0 && z < near {
+						near = z
+					}
+				}
+				var sum float32
+				cnt := 0
+				if !math.IsInf(float64(near), 1) {
+					limit := 3 * float32(axialSigma(float64(near), 0))
+					for _, z := range zs {
+						if z > 0 && z-near <= limit {
+							sum += z
+							cnt++
+						}
+					}
+				}
+				if cnt > 0 {
+					dst.depth[y*dst.intr.Width+x] = sum / float32(cnt)
+				} else {
+					dst.depth[y*dst.intr.Width+x] = 0
+				}
+			}
+		}
+	}
+	for l := range t.levels {
+		lv := &t.levels[l]
+		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm)
+	}
+}
+
+// vertexNormalMaps back-projects depth into vert and estimates normals
+// by the cross product of central differences, oriented toward the
+// camera; pixels without four valid neighbours within 5% of their depth
+// get a zero normal. It returns the number of pixels with a normal.
+func vertexNormalMaps(depth []float32, intr mesh.Intrinsics, vert, norm []r3.Vec) int {
+	w, h := intr.Width, intr.Height
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			i := y*w + x
+			z := depth[i]
+			if z > 0 {
+				vert[i] = intr.BackProject(float64(x), float64(y), float64(z))
+			} else {
+				vert[i] = r3.Vec{}
+			}
+		}
+	}
+	valid := 0
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			i := y*w + x
+			norm[i] = r3.Vec{}
+			z := depth[i]
+			if z <= 0 || x == 0 || y == 0 || x == w-1 || y == h-1 {
+				continue
+			}
+			jump := 0.05 * z
+			l, r, u, d := depth[i-1], depth[i+1], depth[i-w], depth[i+w]
+			if l <= 0 || r <= 0 || u <= 0 || d <= 0 ||
+				abs32(l-z) > jump || abs32(r-z) > jump || abs32(u-z) > jump || abs32(d-z) > jump {
+				continue
+			}
+			n := mesh.Normalize(r3.Cross(r3.Sub(vert[i+1], vert[i-1]), r3.Sub(vert[i+w], vert[i-w])))
+			if r3.Dot(n, vert[i]) > 0 {
+				n = r3.Scale(-1, n)
+			}
+			norm[i] = n
+			if n != (r3.Vec{}) {
+				valid++
+			}
+		}
+	}
+	return valid
+}
+
+func abs32(v float32) float32 {
+	if v < 0 {
+		return -v
+	}
+	return v
+}
