@@ -43,9 +43,9 @@ type Part struct {
 
 // Bounds returns the part's extent grown by margin metres on every side,
 // a box that encloses the part with room for a sampling grid.
-func (p *Part) Bounds(margin float64) (min, max r3.Vec) {
+func (p *Part) Bounds(margin float64) mesh.Box {
 	m := r3.Vec{X: margin, Y: margin, Z: margin}
-	return r3.Sub(p.Min, m), r3.Add(p.Max, m)
+	return mesh.Box{Min: r3.Sub(p.Min, m), Max: r3.Add(p.Max, m)}
 }
 
 // Size returns the part's overall size along x, y and z in metres.

@@ -210,7 +210,8 @@ func TestLipschitz(t *testing.T) {
 	const h = 1e-7
 	for i, p := range All() {
 		rng := rand.New(rand.NewPCG(uint64(21+i), 23))
-		lo, hi := p.Bounds(5 * mm)
+		b := p.Bounds(5 * mm)
+		lo, hi := b.Min, b.Max
 		for k := 0; k < 20000; k++ {
 			q := randomIn(rng, lo, hi)
 			g := gradient(p.SDF, q, h)
@@ -250,7 +251,8 @@ func unitVec(rng *rand.Rand) r3.Vec {
 // 1e-9 m are dropped.
 func surfacePoints(p *Part, n int, seed uint64) []r3.Vec {
 	rng := rand.New(rand.NewPCG(seed, 31))
-	lo, hi := p.Bounds(2 * mm)
+	b := p.Bounds(2 * mm)
+	lo, hi := b.Min, b.Max
 	out := make([]r3.Vec, 0, n)
 	for tries := 0; len(out) < n && tries < 50*n; tries++ {
 		q := randomIn(rng, lo, hi)
@@ -307,7 +309,8 @@ func TestSymmetry(t *testing.T) {
 			t.Errorf("valve: %d symmetries, want none", len(maps))
 		}
 		rng := rand.New(rand.NewPCG(uint64(41+i), 43))
-		lo, hi := p.Bounds(5 * mm)
+		b := p.Bounds(5 * mm)
+		lo, hi := b.Min, b.Max
 		for k := 0; k < 2000; k++ {
 			q := randomIn(rng, lo, hi)
 			for j, m := range maps {
