@@ -470,3 +470,17 @@ func benchPoints(p *Part) []r3.Vec {
 	}
 	return pts
 }
+
+// SDF and Color run in the grid sampler's inner loop and must not
+// allocate.
+func TestNoAllocs(t *testing.T) {
+	for _, p := range All() {
+		q := r3.Scale(0.5, r3.Add(p.Min, p.Max))
+		if n := testing.AllocsPerRun(100, func() { sinkF = p.SDF(q) }); n != 0 {
+			t.Errorf("%s: SDF allocates %v times per call", p.Name, n)
+		}
+		if n := testing.AllocsPerRun(100, func() { sinkC = p.Color(q) }); n != 0 {
+			t.Errorf("%s: Color allocates %v times per call", p.Name, n)
+		}
+	}
+}
