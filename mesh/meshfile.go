@@ -146,11 +146,11 @@ func readAllLimited(r io.Reader, format string) ([]byte, error) {
 	return buf.Bytes(), nil
 }
 
-// withPath returns err with the file's path added: a *FileError gets
+// ioWithPath returns err with the file's path added: a *FileError gets
 // its Path set (so that the text reads "mesh: part.ply: ..."), any
 // other error is wrapped with the path unless it already names it (as
 // *fs.PathError does).
-func withPath(path string, err error) error {
+func ioWithPath(path string, err error) error {
 	if err == nil {
 		return nil
 	}
@@ -191,7 +191,7 @@ const (
 	kindOBJ
 )
 
-func kindOf(path string) fileKind {
+func fileKindOf(path string) fileKind {
 	switch strings.ToLower(filepath.Ext(path)) {
 	case ".ply":
 		return kindPLY
@@ -211,8 +211,8 @@ func unknownExtension(path string) error {
 	}
 }
 
-// readFile reads the whole of path, bounded by MaxFileBytes.
-func readFile(path, format string) ([]byte, error) {
+// ioReadFile reads the whole of path, bounded by MaxFileBytes.
+func ioReadFile(path, format string) ([]byte, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, fmt.Errorf("mesh: %w", err)
@@ -220,7 +220,7 @@ func readFile(path, format string) ([]byte, error) {
 	defer f.Close()
 	data, err := readAllLimited(f, format)
 	if err != nil {
-		return nil, withPath(path, err)
+		return nil, ioWithPath(path, err)
 	}
 	return data, nil
 }
@@ -230,11 +230,11 @@ func readFile(path, format string) ([]byte, error) {
 // or ASCII; positions are welded, see ReadSTL) or .obj. Errors carry
 // the path: "mesh: part.ply: vertex element: ...".
 func LoadMesh(path string) (*Mesh, error) {
-	k := kindOf(path)
+	k := fileKindOf(path)
 	if k == kindUnknown {
 		return nil, unknownExtension(path)
 	}
-	data, err := readFile(path, k.format())
+	data, err := ioReadFile(path, k.format())
 	if err != nil {
 		return nil, err
 	}
@@ -248,7 +248,7 @@ func LoadMesh(path string) (*Mesh, error) {
 		m, err = decodeOBJ(data)
 	}
 	if err != nil {
-		return nil, withPath(path, err)
+		return nil, ioWithPath(path, err)
 	}
 	return m, nil
 }
@@ -271,7 +271,7 @@ func (k fileKind) format() string {
 // directory, synced and renamed over path, so a crash or an error never
 // leaves a half-written file at path.
 func SaveMesh(path string, m *Mesh) error {
-	switch kindOf(path) {
+	switch fileKindOf(path) {
 	case kindPLY:
 		return SaveMeshPLY(path, m, DefaultPLYOptions())
 	case kindSTL:
@@ -292,7 +292,7 @@ func SaveMeshPLY(path string, m *Mesh, opt PLYOptions) error {
 // ReadPLYCloud (its faces, if any, are skipped); a mesh file (.stl,
 // .obj) loads as its vertices with their normals and colours.
 func LoadCloud(path string) (*Cloud, error) {
-	k := kindOf(path)
+	k := fileKindOf(path)
 	if k == kindUnknown {
 		return nil, unknownExtension(path)
 	}
@@ -303,13 +303,13 @@ func LoadCloud(path string) (*Cloud, error) {
 		}
 		return &Cloud{Points: m.Vertices, Normals: m.Normals, Colors: m.Colors}, nil
 	}
-	data, err := readFile(path, "ply")
+	data, err := ioReadFile(path, "ply")
 	if err != nil {
 		return nil, err
 	}
 	m, _, err := decodePLY(data, true, false)
 	if err != nil {
-		return nil, withPath(path, err)
+		return nil, ioWithPath(path, err)
 	}
 	return &Cloud{Points: m.Vertices, Normals: m.Normals, Colors: m.Colors}, nil
 }
@@ -317,7 +317,7 @@ func LoadCloud(path string) (*Cloud, error) {
 // SaveCloud writes c to path as binary little-endian PLY, atomically as
 // SaveMesh does. The extension must be .ply.
 func SaveCloud(path string, c *Cloud) error {
-	if kindOf(path) != kindPLY {
+	if fileKindOf(path) != kindPLY {
 		return &wrappedPathError{path: path,
 			msg: fmt.Sprintf("a point cloud is saved as .ply, not %q", filepath.Ext(path)),
 			err: ErrUnsupported}
@@ -346,7 +346,7 @@ func writeFileAtomic(path string, write func(io.Writer) error) (err error) {
 		}
 	}()
 	if err = write(f); err != nil {
-		return withPath(path, err)
+		return ioWithPath(path, err)
 	}
 	if err = f.Chmod(0o644); err != nil {
 		return fmt.Errorf("mesh: %w", err)

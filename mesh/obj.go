@@ -31,7 +31,8 @@ import (
 // Normals: OBJ attaches normals to face corners, the mesh to vertices.
 // A vertex takes the normal of the corners that use it when they all
 // agree; when a vertex is used with different normals (a hard edge) it
-// takes their normalised sum, the mean direction of its corners. A
+// takes the normalised sum of its corners' unit normals, their mean
+// direction. A
 // vertex that no corner gives a normal gets the zero vector. When no
 // face refers to normals, the file has no faces and it has exactly as
 // many vn as v lines, the i-th normal goes to the i-th vertex (a point
@@ -59,24 +60,24 @@ type objNormal struct {
 // -1), both 0-based.
 type objCorner struct{ v, n int }
 
-// nextField splits off the first white-space separated field of b.
-func nextField(b []byte) (field, rest []byte) {
+// objNextField splits off the first white-space separated field of b.
+func objNextField(b []byte) (field, rest []byte) {
 	i := 0
-	for i < len(b) && isSpace(b[i]) {
+	for i < len(b) && objIsSpace(b[i]) {
 		i++
 	}
 	j := i
-	for j < len(b) && !isSpace(b[j]) {
+	for j < len(b) && !objIsSpace(b[j]) {
 		j++
 	}
 	return b[i:j], b[j:]
 }
 
-func isSpace(c byte) bool { return c == ' ' || c == '\t' || c == '\r' || c == '\v' || c == '\f' }
+func objIsSpace(c byte) bool { return c == ' ' || c == '\t' || c == '\r' || c == '\v' || c == '\f' }
 
-// isWord reports whether b looks like an OBJ keyword: a letter or
+// objIsWord reports whether b looks like an OBJ keyword: a letter or
 // underscore, then letters, digits or underscores.
-func isWord(b []byte) bool {
+func objIsWord(b []byte) bool {
 	for i, c := range b {
 		letter := c >= 'a' && c <= 'z' || c >= 'A' && c <= 'Z' || c == '_'
 		if !letter && (i == 0 || c < '0' || c > '9') {
@@ -108,7 +109,7 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 		n := 0
 		for {
 			var tok []byte
-			tok, rest = nextField(rest)
+			tok, rest = objNextField(rest)
 			if len(tok) == 0 {
 				return n, nil
 			}
@@ -117,20 +118,20 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 			}
 			f, err := strconv.ParseFloat(string(tok), 64)
 			if err != nil {
-				return n, fail(ErrInvalid, "%q is not a number", truncate(tok))
+				return n, fail(ErrInvalid, "%q is not a number", ioTruncate(tok))
 			}
 			if math.IsNaN(f) || math.IsInf(f, 0) {
-				return n, fail(ErrInvalid, "value %q is not finite", truncate(tok))
+				return n, fail(ErrInvalid, "value %q is not finite", ioTruncate(tok))
 			}
 			vals[n] = f
 			n++
 		}
 	}
 	// index resolves an OBJ index against n elements defined so far.
-	index := func(tok []byte, n int, what string) (int, error) {
+	index := func(tok []byte, n int, what, plural string) (int, error) {
 		i, err := strconv.ParseInt(string(tok), 10, 64)
 		if err != nil {
-			return 0, fail(ErrInvalid, "%s index %q is not an integer", what, truncate(tok))
+			return 0, fail(ErrInvalid, "%s index %q is not an integer", what, ioTruncate(tok))
 		}
 		switch {
 		case i > 0 && i <= int64(n):
@@ -138,7 +139,7 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 		case i < 0 && -i <= int64(n):
 			return n + int(i), nil
 		}
-		return 0, fail(ErrInvalid, "%s index %d is out of range: %d %ss defined so far", what, i, n, what)
+		return 0, fail(ErrInvalid, "%s index %d is out of range: %d %s defined so far", what, i, n, plural)
 	}
 
 	for off := 0; off < len(data); {
@@ -154,7 +155,7 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 		if !utf8.Valid(raw) {
 			return nil, fail(ErrInvalid, "line is not UTF-8 text")
 		}
-		kw, rest := nextField(raw)
+		kw, rest := objNextField(raw)
 		switch string(kw) {
 		case "":
 		case "v":
@@ -188,26 +189,26 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 			corners = corners[:0]
 			for {
 				var tok []byte
-				tok, rest = nextField(rest)
+				tok, rest = objNextField(rest)
 				if len(tok) == 0 {
 					break
 				}
 				c := objCorner{n: -1}
 				parts := bytes.SplitN(tok, []byte("/"), 4)
 				if len(parts) > 3 {
-					return nil, fail(ErrInvalid, "face corner %q has more than three parts", truncate(tok))
+					return nil, fail(ErrInvalid, "face corner %q has more than three parts", ioTruncate(tok))
 				}
 				var err error
-				if c.v, err = index(parts[0], len(m.Vertices), "vertex"); err != nil {
+				if c.v, err = index(parts[0], len(m.Vertices), "vertex", "vertices"); err != nil {
 					return nil, err
 				}
 				if len(parts) > 1 && len(parts[1]) > 0 {
-					if _, err = index(parts[1], nTex, "texture coordinate"); err != nil {
+					if _, err = index(parts[1], nTex, "texture coordinate", "texture coordinates"); err != nil {
 						return nil, err
 					}
 				}
 				if len(parts) > 2 {
-					if c.n, err = index(parts[2], len(normals), "normal"); err != nil {
+					if c.n, err = index(parts[2], len(normals), "normal", "normals"); err != nil {
 						return nil, err
 					}
 				}
@@ -228,19 +229,18 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 					acc = append(acc, objNormal{})
 				}
 				a, n := &acc[c.v], normals[c.n]
-				switch {
-				case !a.has:
-					a.first, a.sum, a.has = n, n, true
-				default:
-					if n != a.first {
-						a.differs = true
-					}
-					a.sum = r3.Add(a.sum, n)
+				if !a.has {
+					a.first, a.has = n, true
+				} else if n != a.first {
+					a.differs = true
 				}
+				// Unit vectors: every corner weighs the same, and the
+				// sum of finitely many stays finite.
+				a.sum = r3.Add(a.sum, Normalize(n))
 			}
 		default:
-			if !isWord(kw) {
-				return nil, fail(ErrInvalid, "unknown statement %q", truncate(kw))
+			if !objIsWord(kw) {
+				return nil, fail(ErrInvalid, "unknown statement %q", ioTruncate(kw))
 			}
 			// Another statement: skipped.
 		}
@@ -292,7 +292,7 @@ func WriteOBJ(w io.Writer, m *Mesh) error {
 	}
 	check := func(what string, vs []r3.Vec) error {
 		for i, v := range vs {
-			if !finite(v) {
+			if !ioFinite(v) {
 				return fmt.Errorf("mesh: obj: %s %d (%g, %g, %g) is not finite: %w", what, i, v.X, v.Y, v.Z, ErrInvalid)
 			}
 		}

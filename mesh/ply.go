@@ -702,6 +702,9 @@ func plyRecordError(body plyBody, e *plyElement, rec int64, prop string, cause e
 	fe.Element, fe.Record, fe.Property = e.name, rec, prop
 	if errors.Is(cause, io.ErrUnexpectedEOF) {
 		fe.Msg, fe.Err = "file ends inside the record", io.ErrUnexpectedEOF
+		if atRecord {
+			fe.Msg = "file ends before the record"
+		}
 	} else {
 		fe.Msg = cause.Error()
 	}
@@ -775,12 +778,12 @@ func decodePLYVertices(body plyBody, e *plyElement, roles []uint8, m *Mesh, scal
 		if err := body.endRecord(); err != nil {
 			return plyRecordError(body, e, i, "", err, false)
 		}
-		if !finite(v) {
+		if !ioFinite(v) {
 			return plyRecordError(body, e, i, "", fmt.Errorf("position (%g, %g, %g) is not finite", v.X, v.Y, v.Z), true)
 		}
 		m.Vertices[i] = v
 		if m.Normals != nil {
-			if !finite(n) {
+			if !ioFinite(n) {
 				return plyRecordError(body, e, i, "", fmt.Errorf("normal (%g, %g, %g) is not finite", n.X, n.Y, n.Z), true)
 			}
 			m.Normals[i] = n
@@ -848,7 +851,7 @@ func decodePLYFaces(body plyBody, e *plyElement, roles []uint8, nv int, faces []
 	return faces, nil
 }
 
-func finite(v r3.Vec) bool {
+func ioFinite(v r3.Vec) bool {
 	return !math.IsNaN(v.X) && !math.IsNaN(v.Y) && !math.IsNaN(v.Z) &&
 		!math.IsInf(v.X, 0) && !math.IsInf(v.Y, 0) && !math.IsInf(v.Z, 0)
 }
@@ -1023,7 +1026,7 @@ func (a *plyASCIIBody) value(t plyType) (float64, error) {
 		}
 		f, err := strconv.ParseFloat(string(tok), bits)
 		if err != nil {
-			return 0, fmt.Errorf("%q is not a %s", truncate(tok), t)
+			return 0, fmt.Errorf("%q is not a valid %s", ioTruncate(tok), t)
 		}
 		return f, nil
 	}
@@ -1044,13 +1047,13 @@ func (a *plyASCIIBody) value(t plyType) (float64, error) {
 	}
 	i, err := strconv.ParseInt(string(tok), 10, 64)
 	if err != nil || i < lo || i > hi {
-		return 0, fmt.Errorf("%q is not a %s", truncate(tok), t)
+		return 0, fmt.Errorf("%q is not a valid %s", ioTruncate(tok), t)
 	}
 	return float64(i), nil
 }
 
-// truncate shortens a token for an error message.
-func truncate(tok []byte) string {
+// ioTruncate shortens a token for an error message.
+func ioTruncate(tok []byte) string {
 	if len(tok) > 40 {
 		return string(tok[:40]) + "..."
 	}
@@ -1068,7 +1071,7 @@ func (a *plyASCIIBody) skip(t plyType, n int64) error {
 
 func (a *plyASCIIBody) endRecord() error {
 	if tok := a.token(); tok != nil {
-		return fmt.Errorf("unexpected value %q after the end of the record", truncate(tok))
+		return fmt.Errorf("unexpected value %q after the end of the record", ioTruncate(tok))
 	}
 	return nil
 }
@@ -1144,8 +1147,8 @@ func checkPLYOptions(opt PLYOptions, nv int) error {
 	return nil
 }
 
-// toFloat32 converts a coordinate for writing.
-func toFloat32(what string, i int, x float64) (float32, error) {
+// ioFloat32 converts a coordinate for writing.
+func ioFloat32(what string, i int, x float64) (float32, error) {
 	if math.IsNaN(x) || math.IsInf(x, 0) {
 		return 0, fmt.Errorf("mesh: %s %d: coordinate %g is not finite: %w", what, i, x, ErrInvalid)
 	}
@@ -1200,13 +1203,13 @@ func writePLY(w io.Writer, verts, normals []r3.Vec, colors []RGB, faces []Face, 
 	for i, v := range verts {
 		enc.buf = enc.buf[:0]
 		var err error
-		if xyz[0], err = toFloat32("vertex", i, v.X); err != nil {
+		if xyz[0], err = ioFloat32("vertex", i, v.X); err != nil {
 			return err
 		}
-		if xyz[1], err = toFloat32("vertex", i, v.Y); err != nil {
+		if xyz[1], err = ioFloat32("vertex", i, v.Y); err != nil {
 			return err
 		}
-		if xyz[2], err = toFloat32("vertex", i, v.Z); err != nil {
+		if xyz[2], err = ioFloat32("vertex", i, v.Z); err != nil {
 			return err
 		}
 		enc.float(xyz[0])
@@ -1214,13 +1217,13 @@ func writePLY(w io.Writer, verts, normals []r3.Vec, colors []RGB, faces []Face, 
 		enc.float(xyz[2])
 		if normals != nil {
 			n := normals[i]
-			if xyz[0], err = toFloat32("normal", i, n.X); err != nil {
+			if xyz[0], err = ioFloat32("normal", i, n.X); err != nil {
 				return err
 			}
-			if xyz[1], err = toFloat32("normal", i, n.Y); err != nil {
+			if xyz[1], err = ioFloat32("normal", i, n.Y); err != nil {
 				return err
 			}
-			if xyz[2], err = toFloat32("normal", i, n.Z); err != nil {
+			if xyz[2], err = ioFloat32("normal", i, n.Z); err != nil {
 				return err
 			}
 			enc.float(xyz[0])

@@ -243,7 +243,7 @@ func WriteSTL(w io.Writer, m *Mesh, ascii bool) error {
 		for j, vi := range f {
 			v := m.Vertices[vi]
 			for k, x := range [3]float64{v.X, v.Y, v.Z} {
-				y, err := toFloat32("stl: vertex", int(vi), x)
+				y, err := ioFloat32("stl: vertex", int(vi), x)
 				if err != nil {
 					return err
 				}
@@ -251,7 +251,7 @@ func WriteSTL(w io.Writer, m *Mesh, ascii bool) error {
 			}
 		}
 		n := m.FaceNormal(f)
-		if !finite(n) {
+		if !ioFinite(n) {
 			n = r3.Vec{} // the cross product overflowed: no usable normal
 		}
 		t.Normal = stl.Vec3{float32(n.X), float32(n.Y), float32(n.Z)}
