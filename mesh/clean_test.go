@@ -1,6 +1,7 @@
 package mesh
 
 import (
+	"fmt"
 	"math"
 	"slices"
 	"testing"
@@ -341,4 +342,29 @@ func BenchmarkWeldVertices(b *testing.B) {
 			m.WeldVertices(1e-6)
 		}
 	})
+}
+
+func ExampleMesh_Clean() {
+	// A 1 m square stored as a triangle soup (each triangle with its own
+	// corners, as STL stores them), a stray triangle far away, and a
+	// face whose corners collapse when welded.
+	m := &Mesh{
+		Vertices: []r3.Vec{
+			{}, {X: 1}, {X: 1, Y: 1}, // triangle 1
+			{}, {X: 1, Y: 1}, {Y: 1}, // triangle 2
+			{X: 5}, {X: 5.01}, {X: 5, Y: 0.01}, // stray
+			{Y: 1e-9}, // a near-duplicate of the origin
+		},
+		Faces: []Face{{0, 1, 2}, {3, 4, 5}, {6, 7, 8}, {0, 9, 1}},
+	}
+	opt := DefaultCleanOptions() // welds within 1 µm
+	opt.KeepLargestOnly = true
+	s := m.Clean(opt)
+	fmt.Printf("welded %d vertices, dropped %d degenerate faces and %d components (%d faces), removed %d stray vertices\n",
+		s.WeldedVertices, s.DegenerateFaces, s.RemovedComponents, s.ComponentFaces, s.UnreferencedVertices)
+	fmt.Printf("%d vertices, %d faces, area %.1f m², %d boundary edges, χ = %d\n",
+		len(m.Vertices), len(m.Faces), m.Area(), len(m.BoundaryEdges()), m.EulerCharacteristic())
+	// Output:
+	// welded 3 vertices, dropped 1 degenerate faces and 1 components (1 faces), removed 3 stray vertices
+	// 4 vertices, 2 faces, area 1.0 m², 4 boundary edges, χ = 1
 }

@@ -435,3 +435,29 @@ func BenchmarkKDTreeRadius(b *testing.B) {
 		}
 	})
 }
+
+func ExampleKDTree() {
+	// Eight corners of a 10 cm cube.
+	var corners []r3.Vec
+	for i := 0; i < 8; i++ {
+		corners = append(corners, r3.Vec{X: 0.1 * float64(i&1), Y: 0.1 * float64(i>>1&1), Z: 0.1 * float64(i>>2&1)})
+	}
+	tree := NewKDTree(corners)
+
+	i, d2 := tree.Nearest(r3.Vec{X: 0.09, Y: 0.01, Z: 0.02})
+	fmt.Printf("nearest: corner %d at %.3f m\n", i, math.Sqrt(d2))
+
+	// The three corners sharing an edge with corner 0 are at 0.1 m; the
+	// query ties them, and ties come back in index order.
+	for _, nb := range tree.KNearest(r3.Vec{}, 4, nil) {
+		fmt.Printf("corner %d at %.3f m\n", nb.Index, math.Sqrt(nb.Dist2))
+	}
+	fmt.Println("within 0.1 m of corner 7:", tree.Radius(corners[7], 0.1, nil))
+	// Output:
+	// nearest: corner 1 at 0.024 m
+	// corner 0 at 0.000 m
+	// corner 1 at 0.100 m
+	// corner 2 at 0.100 m
+	// corner 4 at 0.100 m
+	// within 0.1 m of corner 7: [3 5 6 7]
+}

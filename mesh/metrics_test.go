@@ -614,3 +614,23 @@ func BenchmarkMeshEdges(b *testing.B) {
 		}
 	})
 }
+
+func ExampleMesh_Diameter() {
+	// A regular octahedron with vertices ±e_i (edge √2), faces
+	// counter-clockwise seen from outside.
+	m := &Mesh{
+		Vertices: []r3.Vec{{X: 1}, {X: -1}, {Y: 1}, {Y: -1}, {Z: 1}, {Z: -1}},
+		Faces: []Face{
+			{0, 2, 4}, {2, 1, 4}, {1, 3, 4}, {3, 0, 4},
+			{2, 0, 5}, {1, 2, 5}, {3, 1, 5}, {0, 3, 5},
+		},
+	}
+	fmt.Printf("area %.4f (2√3·a² = 4√3), volume %.4f (√2/3·a³ = 4/3), diameter %.1f\n", m.Area(), m.SignedVolume(), m.Diameter())
+	fmt.Printf("watertight %v, oriented %v, χ = %d, boundary edges %d\n", m.IsWatertight(), m.IsConsistentlyOriented(), m.EulerCharacteristic(), len(m.BoundaryEdges()))
+	b := m.Bounds()
+	fmt.Println("bounds", b.Min, b.Max, "centre", b.Center())
+	// Output:
+	// area 6.9282 (2√3·a² = 4√3), volume 1.3333 (√2/3·a³ = 4/3), diameter 2.0
+	// watertight true, oriented true, χ = 2, boundary edges 0
+	// bounds {-1 -1 -1} {1 1 1} centre {0 0 0}
+}
