@@ -1,7 +1,6 @@
 package mesh
 
 import (
-	"bytes"
 	"errors"
 	"fmt"
 	"io"
@@ -130,20 +129,28 @@ func readAllLimited(r io.Reader, format string) ([]byte, error) {
 		return nil, newFileError(format, ErrUnsupported,
 			fmt.Sprintf("file of %d bytes is larger than the limit of %d bytes", size, int64(MaxFileBytes)))
 	}
-	var buf bytes.Buffer
-	if size >= 0 {
-		// One more byte than the size so that ReadFrom sees EOF
-		// without growing the buffer.
-		buf.Grow(int(size) + 1)
+	// One byte more than the size, so that the read that sees EOF does
+	// not grow the buffer.
+	buf := make([]byte, 0, max(size+1, 512))
+	lr := io.LimitReader(r, MaxFileBytes+1)
+	for {
+		if len(buf) == cap(buf) {
+			buf = append(buf, 0)[:len(buf)] // grow by append's policy
+		}
+		n, err := lr.Read(buf[len(buf):cap(buf)])
+		buf = buf[:len(buf)+n]
+		if err == io.EOF {
+			break
+		}
+		if err != nil {
+			return nil, fmt.Errorf("mesh: %s: reading: %w", format, err)
+		}
 	}
-	if _, err := buf.ReadFrom(io.LimitReader(r, MaxFileBytes+1)); err != nil {
-		return nil, fmt.Errorf("mesh: %s: reading: %w", format, err)
-	}
-	if buf.Len() > MaxFileBytes {
+	if len(buf) > MaxFileBytes {
 		return nil, newFileError(format, ErrUnsupported,
 			fmt.Sprintf("file is larger than the limit of %d bytes", int64(MaxFileBytes)))
 	}
-	return buf.Bytes(), nil
+	return buf, nil
 }
 
 // ioWithPath returns err with the file's path added: a *FileError gets

@@ -98,6 +98,10 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 		anyFaceN bool
 		vals     [8]float64
 	)
+	// Capacities from a count of the statements (bounded by the file's
+	// size), so the slices do not grow step by step.
+	m.Vertices = make([]r3.Vec, 0, bytes.Count(data, []byte("\nv "))+1)
+	m.Faces = make([]Face, 0, bytes.Count(data, []byte("\nf "))+1)
 	line := 0
 	fail := func(kind error, format string, args ...any) error {
 		e := newFileError("obj", kind, fmt.Sprintf(format, args...))
@@ -194,20 +198,31 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 					break
 				}
 				c := objCorner{n: -1}
-				parts := bytes.SplitN(tok, []byte("/"), 4)
-				if len(parts) > 3 {
-					return nil, fail(ErrInvalid, "face corner %q has more than three parts", ioTruncate(tok))
+				// v, v/vt, v//vn or v/vt/vn, split without allocating.
+				var parts [3][]byte
+				np := 0
+				for rest := tok; ; np++ {
+					if np == 3 {
+						return nil, fail(ErrInvalid, "face corner %q has more than three parts", ioTruncate(tok))
+					}
+					i := bytes.IndexByte(rest, '/')
+					if i < 0 {
+						parts[np] = rest
+						np++
+						break
+					}
+					parts[np], rest = rest[:i], rest[i+1:]
 				}
 				var err error
 				if c.v, err = index(parts[0], len(m.Vertices), "vertex", "vertices"); err != nil {
 					return nil, err
 				}
-				if len(parts) > 1 && len(parts[1]) > 0 {
+				if np > 1 && len(parts[1]) > 0 {
 					if _, err = index(parts[1], nTex, "texture coordinate", "texture coordinates"); err != nil {
 						return nil, err
 					}
 				}
-				if len(parts) > 2 {
+				if np > 2 {
 					if c.n, err = index(parts[2], len(normals), "normal", "normals"); err != nil {
 						return nil, err
 					}
@@ -225,8 +240,11 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 					continue
 				}
 				anyFaceN = true
-				for len(acc) < len(m.Vertices) {
-					acc = append(acc, objNormal{})
+				if len(acc) < len(m.Vertices) {
+					if cap(acc) < cap(m.Vertices) {
+						acc = append(make([]objNormal, 0, cap(m.Vertices)), acc...)
+					}
+					acc = acc[:len(m.Vertices)] // the new entries are zero
 				}
 				a, n := &acc[c.v], normals[c.n]
 				if !a.has {
