@@ -37,6 +37,21 @@
 // three non-collinear points for an alignment, say) return an error
 // wrapping ErrDegenerate.
 //
+// # Files
+//
+// ReadPLY, ReadSTL and ReadOBJ (and LoadMesh, which picks one by the
+// file's extension) hold the whole file in memory, at most MaxFileBytes,
+// and check every count a header declares against the bytes that follow
+// before they allocate. Bad data gives a *FileError naming the element,
+// record, property and line or byte offset, wrapping ErrInvalid or
+// ErrUnsupported (and io.ErrUnexpectedEOF when the file is cut short).
+// The readers never return a NaN or infinite position. An empty PLY
+// vertex element reads as an empty mesh; an STL solid without triangles
+// and an OBJ file without vertices are refused, by reader and writer
+// alike. Binary PLY and STL store float32, so a round trip through them
+// is exact to float32 rounding. SaveMesh and SaveCloud replace a file
+// atomically: a crash or an error never leaves half of one.
+//
 // Programmer errors (mismatched slice lengths passed to a function that
 // documents them) panic; anything that comes from data returns an error.
 package mesh

@@ -61,6 +61,11 @@ func TestReadPLYTurkCube(t *testing.T) {
 	if v := ioTestVolume(m); v != 1 {
 		t.Errorf("volume = %v, want 1 (faces wind outward)", v)
 	}
+	// The package's metrics agree. Tolerance: a dozen terms of size ≤ 1
+	// summed in an order the metrics code chooses, a few ulps.
+	if a, v := m.Area(), m.SignedVolume(); math.Abs(a-6) > 1e-14 || math.Abs(v-1) > 1e-14 {
+		t.Errorf("Mesh.Area %v, Mesh.SignedVolume %v; want 6, 1", a, v)
+	}
 }
 
 func TestReadPLYTurkColourCube(t *testing.T) {

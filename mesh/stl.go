@@ -38,8 +38,9 @@ const (
 // Normals or Colors); triangles keep their vertex order.
 //
 // A file is binary when its size is exactly 84 + 50·n bytes for the
-// triangle count n at byte 80, and ASCII when it starts with "solid"
-// and is not binary; anything else is an error, as is a binary file
+// triangle count n at byte 80 (whatever its header says), and ASCII
+// when it starts with "solid" (after an optional byte-order mark and
+// white space) and is not binary; anything else is an error, as is a binary file
 // whose declared count does not match its size (checked before
 // anything is allocated), a NaN or infinite coordinate, and a solid
 // with no triangles. Only the first solid of an ASCII file is read.
@@ -68,6 +69,14 @@ func decodeSTL(data []byte) (*Mesh, error) {
 	if len(data) >= stlHeaderBytes {
 		count = binary.LittleEndian.Uint32(data[80:84])
 		binaryOK = int64(len(data)) == stlHeaderBytes+int64(count)*stlTriangleBytes
+	}
+	if !binaryOK {
+		// A byte-order mark or white space before "solid" is not in
+		// the format, but is harmless; the library does not allow it.
+		trimmed := bytes.TrimLeft(bytes.TrimPrefix(data, []byte("\xef\xbb\xbf")), " \t\r\n")
+		if stlIsASCII(trimmed) {
+			data = trimmed
+		}
 	}
 	ascii := !binaryOK && stlIsASCII(data)
 	if !binaryOK && !ascii {

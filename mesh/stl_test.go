@@ -174,6 +174,21 @@ func TestReadSTLSolidWithoutName(t *testing.T) {
 	}
 }
 
+func TestReadSTLDetection(t *testing.T) {
+	// A binary header that starts with "solid" is still binary when
+	// the size matches the count: the rule github.com/hschendel/stl
+	// applies too.
+	m, err := ReadSTL(bytes.NewReader(stlBinary("solid confusing header", 1, stlTriangle)))
+	if err != nil || len(m.Faces) != 1 || m.Vertices[1] != (r3.Vec{X: 1}) {
+		t.Errorf("binary with a \"solid\" header: %v, %v", m, err)
+	}
+	// A byte-order mark and blank lines before an ASCII solid.
+	src := "\xef\xbb\xbf\n  solid t\nfacet normal 0 0 1\nouter loop\nvertex 0 0 0\nvertex 1 0 0\nvertex 0 1 0\nendloop\nendfacet\nendsolid t\n"
+	if m, err := ReadSTL(strings.NewReader(src)); err != nil || len(m.Faces) != 1 {
+		t.Errorf("ASCII after a BOM: %v, %v", m, err)
+	}
+}
+
 // stlBinary builds a binary STL with encoding/binary: an 80-byte
 // header, the count, and the triangles' 12 float32s and attribute.
 func stlBinary(header string, count uint32, tris ...[12]float32) []byte {
