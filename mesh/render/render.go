@@ -222,6 +222,7 @@ type Renderer struct {
 	shader idShader
 	tri    fauxgl.Triangle
 	cam    [][]r3.Vec // camera-frame vertices, per object
+	faces  [][]mesh.Face
 	base   []uint32   // global id of each object's face 0, minus 1
 }
 
@@ -300,6 +301,7 @@ func (r *Renderer) prepare(objs []Object) error {
 	}
 	r.cam = r.cam[:len(objs)]
 	r.base = r.base[:0]
+	r.faces = r.faces[:0]
 	var total uint64
 	for o, obj := range objs {
 		if obj.Mesh == nil {
@@ -312,6 +314,7 @@ func (r *Renderer) prepare(objs []Object) error {
 			return fmt.Errorf("render: object %d: ModelToCam pose is not finite", o)
 		}
 		r.base = append(r.base, uint32(total))
+		r.faces = append(r.faces, obj.Mesh.Faces)
 		total += uint64(len(obj.Mesh.Faces))
 		if total > maxFaces {
 			return fmt.Errorf("render: %d faces in one frame exceed the limit of %d", total, uint64(maxFaces))
@@ -432,21 +435,93 @@ func idColor(id uint32) fauxgl.Color {
 	return fauxgl.Color{R: ch(id), G: ch(id >> 8), B: ch(id >> 16), A: ch(id >> 24)}
 }
 
+// edgeTol is the barycentric tolerance within which a neighbour's face
+// may claim a pixel centre (see resolve): a pixel centre that lies on an
+// edge to within 1e−9 of the face's altitude, far below a pixel for any
+// face smaller than a million pixels, and far above the rounding of
+// fauxgl's float64 edge functions (about 1e−13 of a pixel).
+const edgeTol = 1e-9
+
+// hit is a ray–face intersection.
+type hit struct {
+	o, f   int     // object, face
+	t      float64 // depth z (the ray has unit z)
+	bu, bv float64 // barycentric weights of the face's second and third vertex
+	e1, e2 r3.Vec  // face edges b − a, c − a
+}
+
 // resolve turns the id image into the frame: exact ray–face intersection,
 // attributes and shading for every covered pixel.
+//
+// fauxgl covers a pixel when its centre is inside or on a face, but a
+// centre that lies exactly on an edge shared by two faces (as happens for
+// symmetric geometry, the diagonal of a quad through the principal
+// point, say) can be rejected by both through rounding, leaving a crack
+// that shows what lies behind. So every pixel also tries the faces seen
+// at its 4-neighbours that are nearer in fauxgl's depth buffer (all of
+// them where the pixel saw nothing), and takes the nearest exact hit
+// that lies on the face to within edgeTol. Faces too small to cover any
+// neighbouring pixel centre cannot be recovered this way; a pixel centre
+// lying exactly on one of their edges is left to fauxgl's rounding.
 func (r *Renderer) resolve(dst *Frame, objs []Object, opt Options) {
 	k := r.intr
+	w, h := k.Width, k.Height
 	pix := r.ctx.ColorBuffer.Pix
-	light := mesh.Normalize(opt.LightDir)
-	sh := shading{opt: opt, light: light}
-	for j := 0; j < k.Height; j++ {
-		row := j * k.Width
+	zbuf := r.ctx.DepthBuffer
+	id := func(p int) uint32 {
+		q := 4 * p
+		return uint32(pix[q]) | uint32(pix[q+1])<<8 | uint32(pix[q+2])<<16 | uint32(pix[q+3])<<24
+	}
+	sh := shading{opt: opt, light: mesh.Normalize(opt.LightDir)}
+	for j := 0; j < h; j++ {
+		row := j * w
 		ry := (float64(j) - k.Cy) / k.Fy
-		for i := 0; i < k.Width; i++ {
+		for i := 0; i < w; i++ {
 			p := row + i
-			q := 4 * p
-			id := uint32(pix[q]) | uint32(pix[q+1])<<8 | uint32(pix[q+2])<<16 | uint32(pix[q+3])<<24
-			if id == 0 || !r.shade(dst, p, id-1, r3.Vec{X: (float64(i) - k.Cx) / k.Fx, Y: ry, Z: 1}, objs, &sh) {
+			d := r3.Vec{X: (float64(i) - k.Cx) / k.Fx, Y: ry, Z: 1}
+			own := id(p)
+			var best hit
+			found := false
+			if own != 0 {
+				best, found = r.intersect(own-1, d, math.Inf(1), 0, math.Inf(1))
+			}
+			var tried [4]uint32
+			nt := 0
+			for nb := 0; nb < 4; nb++ {
+				q := -1
+				switch {
+				case nb == 0 && i > 0:
+					q = p - 1
+				case nb == 1 && i+1 < w:
+					q = p + 1
+				case nb == 2 && j > 0:
+					q = p - w
+				case nb == 3 && j+1 < h:
+					q = p + w
+				}
+				if q < 0 {
+					continue
+				}
+				nid := id(q)
+				if nid == 0 || nid == own || (own != 0 && zbuf[q] >= zbuf[p]) {
+					continue
+				}
+				dup := false
+				for _, t := range tried[:nt] {
+					dup = dup || t == nid
+				}
+				if dup {
+					continue
+				}
+				tried[nt] = nid
+				nt++
+				if c, ok := r.intersect(nid-1, d, edgeTol, opt.Near, opt.Far); ok && (!found || c.t < best.t) {
+					best, found = c, true
+				}
+			}
+			if found {
+				r.shade(dst, p, &best, d, objs, &sh)
+			} else {
 				r.setEmpty(dst, p, opt.Background)
 			}
 		}
@@ -477,22 +552,22 @@ func (r *Renderer) object(g uint32) (int, int) {
 	return lo, int(g - r.base[lo])
 }
 
-// shade fills pixel p, seen along ray d (unit z), from face g. It returns
-// false when the exact ray misses the face's plane (possible only by
-// rounding for faces nearly edge-on) so the pixel is left empty.
-func (r *Renderer) shade(dst *Frame, p int, g uint32, d r3.Vec, objs []Object, sh *shading) bool {
+// intersect intersects the ray from the camera centre along d (unit z)
+// with the plane of face g (Möller & Trumbore 1997). It reports a hit
+// when the barycentric weights are all ≥ −tol and near ≤ t ≤ far; with
+// tol = +Inf only the plane matters (the rasteriser has already decided
+// coverage). A ray parallel to the plane or meeting it behind the camera
+// is no hit.
+func (r *Renderer) intersect(g uint32, d r3.Vec, tol, near, far float64) (hit, bool) {
 	o, fi := r.object(g)
-	obj := &objs[o]
-	f := obj.Mesh.Faces[fi]
 	cam := r.cam[o]
+	f := r.faces[o][fi]
 	a, b, c := cam[f[0]], cam[f[1]], cam[f[2]]
-
-	// Möller & Trumbore (1997) with the ray from the origin along d.
 	e1, e2 := r3.Sub(b, a), r3.Sub(c, a)
 	pv := r3.Cross(d, e2)
 	det := r3.Dot(e1, pv)
 	if det == 0 {
-		return false
+		return hit{}, false
 	}
 	inv := 1 / det
 	tv := r3.Scale(-1, a)
@@ -500,23 +575,33 @@ func (r *Renderer) shade(dst *Frame, p int, g uint32, d r3.Vec, objs []Object, s
 	qv := r3.Cross(tv, e1)
 	bv := r3.Dot(d, qv) * inv
 	t := r3.Dot(e2, qv) * inv // = z, since d.Z = 1
-	if !(t > 0) || math.IsInf(t, 0) {
-		return false
+	if !(t > 0) || math.IsInf(t, 0) || t < near || t > far {
+		return hit{}, false
 	}
+	if !(bu >= -tol && bv >= -tol && 1-bu-bv >= -tol) {
+		return hit{}, false
+	}
+	return hit{o: o, f: fi, t: t, bu: bu, bv: bv, e1: e1, e2: e2}, true
+}
+
+// shade fills pixel p, seen along ray d (unit z), from hit h.
+func (r *Renderer) shade(dst *Frame, p int, h *hit, d r3.Vec, objs []Object, sh *shading) {
+	obj := &objs[h.o]
+	m := obj.Mesh
+	f := m.Faces[h.f]
 	// Barycentric weights, clamped into the face for attributes: the
 	// rasteriser may claim a pixel centre a rounding error outside.
-	w0, w1, w2 := clampBary(1-bu-bv, bu, bv)
+	w0, w1, w2 := clampBary(1-h.bu-h.bv, h.bu, h.bv)
 
-	nf := mesh.Normalize(r3.Cross(e1, e2))
+	nf := unit(r3.Cross(h.e1, h.e2))
 	flip := r3.Dot(nf, d) > 0 // back face: turn the normal to the camera
 	if flip {
 		nf = r3.Scale(-1, nf)
 	}
 	n := nf
-	m := obj.Mesh
 	if m.Normals != nil {
 		nm := r3.Add(r3.Add(r3.Scale(w0, m.Normals[f[0]]), r3.Scale(w1, m.Normals[f[1]])), r3.Scale(w2, m.Normals[f[2]]))
-		ni := mesh.Normalize(obj.ModelToCam.Rotate(nm))
+		ni := unit(obj.ModelToCam.Rotate(nm))
 		if flip {
 			ni = r3.Scale(-1, ni)
 		}
@@ -539,12 +624,11 @@ func (r *Renderer) shade(dst *Frame, p int, g uint32, d r3.Vec, objs []Object, s
 		albedo = [3]float64{float64(obj.Color.R), float64(obj.Color.G), float64(obj.Color.B)}
 	}
 
-	dst.Depth[p] = float32(t)
-	dst.Object[p] = int32(o)
-	dst.Triangle[p] = int32(fi)
+	dst.Depth[p] = float32(h.t)
+	dst.Object[p] = int32(h.o)
+	dst.Triangle[p] = int32(h.f)
 	dst.Normal[3*p], dst.Normal[3*p+1], dst.Normal[3*p+2] = float32(n.X), float32(n.Y), float32(n.Z)
 	sh.shade(dst.Color.Pix[4*p:4*p+4:4*p+4], albedo, n, d)
-	return true
 }
 
 func clampBary(w0, w1, w2 float64) (float64, float64, float64) {
@@ -570,8 +654,8 @@ func (s *shading) shade(out []uint8, albedo [3]float64, n, d r3.Vec) {
 	k := s.opt.Ambient + s.opt.Diffuse*lam
 	var spec float64
 	if lam > 0 && s.opt.Specular > 0 {
-		view := mesh.Normalize(r3.Scale(-1, d))
-		h := mesh.Normalize(r3.Add(s.light, view))
+		view := unit(r3.Scale(-1, d))
+		h := unit(r3.Add(s.light, view))
 		if c := r3.Dot(n, h); c > 0 {
 			spec = 255 * s.opt.Specular * math.Pow(c, s.opt.Shininess)
 		}
@@ -592,6 +676,17 @@ func to8(v float64) uint8 {
 		return 255
 	}
 	return uint8(v + 0.5)
+}
+
+// unit is mesh.Normalize with a plain square root (r3.Norm goes through
+// math.Hypot, several times slower in the per-pixel loops); the zero
+// vector stays zero.
+func unit(v r3.Vec) r3.Vec {
+	n := math.Sqrt(v.X*v.X + v.Y*v.Y + v.Z*v.Z)
+	if n == 0 {
+		return r3.Vec{}
+	}
+	return r3.Vec{X: v.X / n, Y: v.Y / n, Z: v.Z / n}
 }
 
 func finiteVec(v r3.Vec) bool {

@@ -640,3 +640,34 @@ func TestRenderErrors(t *testing.T) {
 		}
 	}
 }
+
+// TestNoCracksOnSharedEdges renders quads centred on the optical axis
+// with a half-integer principal point, so that their diagonals pass
+// exactly through pixel centres, where fauxgl's rounding alone can
+// leave a crack; the repair in resolve must fill every such pixel with
+// the nearer quad's depth.
+func TestNoCracksOnSharedEdges(t *testing.T) {
+	k := mesh.Intrinsics{Width: 120, Height: 100, Fx: 110, Fy: 110, Cx: 59.5, Cy: 49.5}
+	for _, z := range []float64{0.5, 1, 1.01, 2.7} {
+		objs := []Object{
+			{Mesh: quadMesh(0.2, 0.2), ModelToCam: translate(0, 0, z)},
+			{Mesh: quadMesh(10, 10), ModelToCam: translate(0, 0, z+0.3)},
+		}
+		f, err := Render(k, objs, DefaultOptions())
+		if err != nil {
+			t.Fatal(err)
+		}
+		for j := 0; j < k.Height; j++ {
+			for i := 0; i < k.Width; i++ {
+				X, Y := (float64(i)-k.Cx)*z/k.Fx, (float64(j)-k.Cy)*z/k.Fy
+				want := z + 0.3
+				if math.Abs(X) < 0.2 && math.Abs(Y) < 0.2 {
+					want = z
+				}
+				if got := float64(f.Depth[j*k.Width+i]); math.Abs(got-want) > 1e-6 {
+					t.Fatalf("z=%v: pixel (%d,%d) depth %v, want %v", z, i, j, got, want)
+				}
+			}
+		}
+	}
+}
