@@ -223,7 +223,7 @@ type Renderer struct {
 	tri    fauxgl.Triangle
 	cam    [][]r3.Vec // camera-frame vertices, per object
 	faces  [][]mesh.Face
-	base   []uint32   // global id of each object's face 0, minus 1
+	base   []uint32 // global id of each object's face 0, minus 1
 }
 
 // NewRenderer returns a renderer for images of intr.
