@@ -65,8 +65,10 @@ type Support struct {
 	// Radius is the part's horizontal extent around Centre and Height its
 	// top above the plane (98th percentiles, robust to stray points).
 	Radius, Height float64
-	// Points are the part's back-projected points (camera frame).
+	// Points are the part's back-projected points (camera frame), and
+	// Pixels their pixel indices (y·width + x) in the depth image.
 	Points []r3.Vec
+	Pixels []int
 }
 
 // FindSupport finds the support plane and the part standing on it in
@@ -119,7 +121,7 @@ func FindSupport(depth []float32, intr mesh.Intrinsics, opt SupportOptions) (Sup
 		if pl.Offset < 0 { // the camera (origin) must be on the positive side
 			pl = pl.Flip()
 		}
-		sup, err := partAbove(pts, grid, gw, gh, s, intr.Fx, pl, opt, cx0, cx1, cy0, cy1)
+		sup, err := partAbove(pts, grid, gw, gh, s, intr.Width, intr.Fx, pl, opt, cx0, cx1, cy0, cy1)
 		if err == nil {
 			sup.PlaneInliers = len(fit.Inliers)
 			return sup, nil
@@ -140,7 +142,7 @@ func FindSupport(depth []float32, intr mesh.Intrinsics, opt SupportOptions) (Sup
 	return Support{}, lastErr
 }
 
-func partAbove(pts []r3.Vec, grid []int32, gw, gh, s int, fx float64, pl Plane, opt SupportOptions, cx0, cx1, cy0, cy1 float64) (Support, error) {
+func partAbove(pts []r3.Vec, grid []int32, gw, gh, s, width int, fx float64, pl Plane, opt SupportOptions, cx0, cx1, cy0, cy1 float64) (Support, error) {
 	height := func(i int32) float64 { return pl.Distance(pts[i]) }
 	above := func(g int) bool {
 		i := grid[g]
@@ -212,11 +214,13 @@ func partAbove(pts []r3.Vec, grid []int32, gw, gh, s int, fx float64, pl Plane, 
 		return Support{}, fmt.Errorf("reconstruct: nothing of %d or more points stands between %.0f and %.0f mm above the support near the image centre: %w", opt.MinPoints, opt.MinHeight*1000, opt.MaxHeight*1000, ErrNoPart)
 	}
 	var part []r3.Vec
+	var pix []int
 	var c r3.Vec
 	for g, l := range label {
 		if l == best {
 			p := pts[grid[g]]
 			part = append(part, p)
+			pix = append(pix, (g/gw)*s*width+(g%gw)*s)
 			c = r3.Add(c, p)
 		}
 	}
@@ -229,7 +233,7 @@ func partAbove(pts []r3.Vec, grid []int32, gw, gh, s int, fx float64, pl Plane, 
 		heights[i] = h
 		radii[i] = r3.Norm(r3.Sub(r3.Sub(p, r3.Scale(h, pl.Normal)), foot))
 	}
-	return Support{Plane: pl, Centre: foot, Radius: percentile(radii, 0.98), Height: percentile(heights, 0.98), Points: part}, nil
+	return Support{Plane: pl, Centre: foot, Radius: percentile(radii, 0.98), Height: percentile(heights, 0.98), Points: part, Pixels: pix}, nil
 }
 
 // percentile returns the q-quantile of v (nearest rank); v is reordered.

@@ -135,14 +135,21 @@ func (t *Tracker) UpdateModel(ctx context.Context, camToWorld mesh.Pose) {
 // predicted, a CamToWorld guess (the last pose, or a constant-velocity
 // extrapolation). A frame that cannot be placed comes back Lost with the
 // reason, and is not to be integrated.
-func (t *Tracker) Track(ctx context.Context, depth []float32, predicted mesh.Pose) (TrackResult, error) {
+//
+// mask is nil (use every pixel) or marks the pixels that belong to what
+// the model holds (a turntable's part, which turns while the rest of the
+// scene stands still); the inlier ratio is then over the masked pixels.
+func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predicted mesh.Pose) (TrackResult, error) {
 	if !t.hasModel {
 		return TrackResult{}, fmt.Errorf("reconstruct: Track before UpdateModel")
 	}
 	if len(depth) != t.intr.Width*t.intr.Height {
 		return TrackResult{}, fmt.Errorf("reconstruct: depth has %d pixels, tracker expects %d×%d", len(depth), t.intr.Width, t.intr.Height)
 	}
-	t.buildPyramid(depth)
+	if mask != nil && len(mask) != len(depth) {
+		return TrackResult{}, fmt.Errorf("reconstruct: mask has %d pixels for %d", len(mask), len(depth))
+	}
+	t.buildPyramid(depth, mask)
 	pose := predicted
 	res := TrackResult{CamToWorld: predicted}
 	cosMax := math.Cos(t.opt.MaxNormalAngle)
@@ -251,8 +258,15 @@ func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD,
 // each coarser depth averages the valid pixels of a 2×2 block that lie
 // within 3σ_z of the block's nearest one (so edges are not blurred
 // across a depth jump), and vertex and normal maps follow.
-func (t *Tracker) buildPyramid(depth []float32) {
+func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 	copy(t.levels[0].depth, depth)
+	if mask != nil {
+		for i, m := range mask {
+			if !m {
+				t.levels[0].depth[i] = 0
+			}
+		}
+	}
 	for l := 1; l < pyramidLevels; l++ {
 		src, dst := &t.levels[l-1], &t.levels[l]
 		sw := src.intr.Width

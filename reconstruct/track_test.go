@@ -92,7 +92,7 @@ func TestTrackerFollowsKnownPath(t *testing.T) {
 		if k > 0 {
 			// Constant-velocity prediction.
 			pred := pose.Mul(prev.Inv().Mul(pose))
-			res, err := tr.Track(ctx, depth, pred)
+			res, err := tr.Track(ctx, depth, nil, pred)
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -133,7 +133,7 @@ func TestTrackerLost(t *testing.T) {
 	for i := range wall {
 		wall[i] = 0.3
 	}
-	res, err := tr.Track(ctx, wall, mesh.Identity())
+	res, err := tr.Track(ctx, wall, nil, mesh.Identity())
 	if err != nil {
 		t.Fatal(err)
 	}
