@@ -39,8 +39,9 @@ import (
 // cloud, as several tools write them). Otherwise the mesh has no
 // Normals.
 //
-// A file with no vertex is an error. Errors are *FileError values that
-// name the line and wrap ErrInvalid or ErrUnsupported.
+// A file with no vertex is an error, and more than 2²⁸ triangles is
+// ErrUnsupported. Errors are *FileError values that name the line and
+// wrap ErrInvalid or ErrUnsupported.
 func ReadOBJ(r io.Reader) (*Mesh, error) {
 	data, err := readAllLimited(r, "obj")
 	if err != nil {
@@ -231,6 +232,9 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 			}
 			if len(corners) < 3 {
 				return nil, fail(ErrInvalid, "face has %d corners; at least 3 are needed", len(corners))
+			}
+			if len(m.Faces)+len(corners)-2 > maxPLYCount {
+				return nil, fail(ErrUnsupported, "more than %d triangles", maxPLYCount)
 			}
 			for k := 2; k < len(corners); k++ {
 				m.Faces = append(m.Faces, Face{uint32(corners[0].v), uint32(corners[k-1].v), uint32(corners[k].v)})

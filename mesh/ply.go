@@ -43,7 +43,7 @@ const (
 	maxPLYHeaderBytes = 1 << 20 // the header, end_header included
 	maxPLYElements    = 256     // element declarations in a header
 	maxPLYProperties  = 1024    // property declarations in one element
-	maxPLYCount       = 1 << 28 // records in one element
+	maxPLYCount       = 1 << 28 // records in one element, and triangles after fanning
 	maxPLYListLength  = 1 << 16 // items in one list value
 )
 
@@ -118,7 +118,9 @@ func DefaultPLYOptions() PLYOptions { return PLYOptions{Format: PLYBinaryLE} }
 //
 // ReadPLY holds the whole file in memory (at most MaxFileBytes), and
 // checks every count in the header against the bytes that follow it
-// before it allocates. In ASCII every record must be on one line.
+// before it allocates. It takes at most 2²⁸ records per element, 2²⁸
+// triangles and 65536 items per list; more is ErrUnsupported. In ASCII
+// every record must be on one line.
 // Bytes after the last element are ignored. Errors are *FileError
 // values that name the element, record, property and line (ASCII and
 // header) or byte offset (binary), and wrap ErrInvalid or
@@ -839,6 +841,12 @@ func decodePLYFaces(body plyBody, e *plyElement, roles []uint8, nv int, faces []
 				case 1:
 					prev = idx
 				default:
+					if len(faces) >= maxPLYCount {
+						fe := plyRecordError(body, e, i, p.name,
+							fmt.Errorf("more than %d triangles", maxPLYCount), false)
+						fe.Kind = ErrUnsupported
+						return nil, fe
+					}
 					faces = append(faces, Face{first, prev, idx})
 					prev = idx
 				}
