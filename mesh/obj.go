@@ -61,20 +61,20 @@ type objNormal struct {
 // -1), both 0-based.
 type objCorner struct{ v, n int }
 
-// objNextField splits off the first white-space separated field of b.
-func objNextField(b []byte) (field, rest []byte) {
+// ioNextField splits off the first white-space separated field of b.
+func ioNextField(b []byte) (field, rest []byte) {
 	i := 0
-	for i < len(b) && objIsSpace(b[i]) {
+	for i < len(b) && ioIsSpace(b[i]) {
 		i++
 	}
 	j := i
-	for j < len(b) && !objIsSpace(b[j]) {
+	for j < len(b) && !ioIsSpace(b[j]) {
 		j++
 	}
 	return b[i:j], b[j:]
 }
 
-func objIsSpace(c byte) bool { return c == ' ' || c == '\t' || c == '\r' || c == '\v' || c == '\f' }
+func ioIsSpace(c byte) bool { return c == ' ' || c == '\t' || c == '\r' || c == '\v' || c == '\f' }
 
 // objIsWord reports whether b looks like an OBJ keyword: a letter or
 // underscore, then letters, digits or underscores.
@@ -103,6 +103,7 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 	// size), so the slices do not grow step by step.
 	m.Vertices = make([]r3.Vec, 0, bytes.Count(data, []byte("\nv "))+1)
 	m.Faces = make([]Face, 0, bytes.Count(data, []byte("\nf "))+1)
+	normals = make([]r3.Vec, 0, bytes.Count(data, []byte("\nvn "))+1)
 	line := 0
 	fail := func(kind error, format string, args ...any) error {
 		e := newFileError("obj", kind, fmt.Sprintf(format, args...))
@@ -114,7 +115,7 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 		n := 0
 		for {
 			var tok []byte
-			tok, rest = objNextField(rest)
+			tok, rest = ioNextField(rest)
 			if len(tok) == 0 {
 				return n, nil
 			}
@@ -160,7 +161,7 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 		if !utf8.Valid(raw) {
 			return nil, fail(ErrInvalid, "line is not UTF-8 text")
 		}
-		kw, rest := objNextField(raw)
+		kw, rest := ioNextField(raw)
 		switch string(kw) {
 		case "":
 		case "v":
@@ -194,7 +195,7 @@ func decodeOBJ(data []byte) (*Mesh, error) {
 			corners = corners[:0]
 			for {
 				var tok []byte
-				tok, rest = objNextField(rest)
+				tok, rest = ioNextField(rest)
 				if len(tok) == 0 {
 					break
 				}

@@ -998,7 +998,9 @@ func (a *plyASCIIBody) startRecord() error {
 		}
 		a.off = next
 		a.line++
-		raw = bytes.TrimLeft(raw, " \t\r\v\f")
+		for len(raw) > 0 && ioIsSpace(raw[0]) {
+			raw = raw[1:]
+		}
 		if len(raw) > 0 {
 			a.rest = raw
 			return nil
@@ -1008,16 +1010,12 @@ func (a *plyASCIIBody) startRecord() error {
 
 // token returns the next value of the current line, or nil.
 func (a *plyASCIIBody) token() []byte {
-	s := bytes.TrimLeft(a.rest, " \t\r\v\f")
-	i := bytes.IndexAny(s, " \t\r\v\f")
-	if i < 0 {
-		i = len(s)
-	}
-	a.rest = s[i:]
-	if i == 0 {
+	tok, rest := ioNextField(a.rest)
+	a.rest = rest
+	if len(tok) == 0 {
 		return nil
 	}
-	return s[:i]
+	return tok
 }
 
 var errLineEnds = errors.New("line ends before the record does")
