@@ -1,9 +1,13 @@
 package render
 
 import (
+	"bufio"
 	"bytes"
+	"compress/zlib"
+	"encoding/binary"
 	"errors"
 	"fmt"
+	"hash/crc32"
 	"image"
 	"image/color"
 	"image/draw"
@@ -36,6 +40,12 @@ const deflateMaxRatio = 1032
 // (common practice, with unit = 0.001 for millimetres). Depths that
 // cannot be stored — negative, not finite, positive but rounding to 0, or
 // beyond 65535 units — are written as 0 and counted in dropped.
+//
+// The encoder is ours (the standard library's boxes every 16-bit pixel):
+// the chunk layout, CRC-32 and zlib-wrapped DEFLATE stream of the PNG
+// specification (ISO/IEC 15948), one IDAT chunk, and per row the Sub or
+// Up filter, whichever has the smaller sum of absolute filtered bytes
+// (the heuristic the specification recommends).
 func WriteDepthPNG(w io.Writer, depth []float32, width, height int, unit float64) (dropped int, err error) {
 	if err := checkSize("depth PNG", width, height); err != nil {
 		return 0, err
@@ -46,21 +56,24 @@ func WriteDepthPNG(w io.Writer, depth []float32, width, height int, unit float64
 	if !(unit > 0) || math.IsInf(unit, 0) {
 		return 0, fmt.Errorf("render: depth PNG: unit %v, want a positive finite length in metres", unit)
 	}
-	img := image.NewGray16(image.Rect(0, 0, width, height))
-	for p, z := range depth {
-		if z == 0 {
-			continue
+	// Each row: big-endian 16-bit values, as PNG stores samples.
+	row := make([]byte, 2*width)
+	err = writeGray16PNG(w, width, height, func(y int) []byte {
+		for x, z := range depth[y*width : (y+1)*width] {
+			var v uint16
+			if z != 0 {
+				f := math.Round(float64(z) / unit)
+				if f >= 1 && f <= math.MaxUint16 { // false for NaN too
+					v = uint16(f)
+				} else {
+					dropped++
+				}
+			}
+			row[2*x], row[2*x+1] = uint8(v>>8), uint8(v)
 		}
-		v := math.Round(float64(z) / unit)
-		if !(v >= 1 && v <= math.MaxUint16) { // also NaN
-			dropped++
-			continue
-		}
-		img.Pix[2*p] = uint8(uint16(v) >> 8) // big-endian, as image.Gray16 stores
-		img.Pix[2*p+1] = uint8(v)
-	}
-	enc := png.Encoder{CompressionLevel: png.BestSpeed}
-	if err := enc.Encode(w, img); err != nil {
+		return row
+	})
+	if err != nil {
 		return dropped, fmt.Errorf("render: depth PNG: %w", err)
 	}
 	return dropped, nil
@@ -215,4 +228,79 @@ func checkCompressed(what string, cfg image.Config, bits, n int) error {
 			what, n, cfg.Width, cfg.Height, need, io.ErrUnexpectedEOF)
 	}
 	return nil
+}
+
+// writeGray16PNG writes a 16-bit grey, non-interlaced PNG whose row y
+// (2·width bytes, big-endian samples) row(y) returns; the slice may be
+// reused between calls.
+func writeGray16PNG(w io.Writer, width, height int, row func(y int) []byte) error {
+	var idat bytes.Buffer
+	zw, err := zlib.NewWriterLevel(&idat, zlib.BestSpeed)
+	if err != nil {
+		return err
+	}
+	n := 2 * width
+	prev := make([]byte, n) // the row above the first is zero
+	sub := make([]byte, 1+n)
+	up := make([]byte, 1+n)
+	sub[0], up[0] = 1, 2 // filter types Sub and Up
+	for y := 0; y < height; y++ {
+		cur := row(y)
+		var ssub, sup int
+		for i := 0; i < n; i++ {
+			var left byte
+			if i >= 2 { // 2 bytes per pixel
+				left = cur[i-2]
+			}
+			a, b := cur[i]-left, cur[i]-prev[i]
+			sub[1+i], up[1+i] = a, b
+			ssub += absInt8(a)
+			sup += absInt8(b)
+		}
+		f := sub
+		if sup < ssub {
+			f = up
+		}
+		if _, err := zw.Write(f); err != nil {
+			return err
+		}
+		copy(prev, cur)
+	}
+	if err := zw.Close(); err != nil {
+		return err
+	}
+	var ihdr [13]byte
+	binary.BigEndian.PutUint32(ihdr[0:], uint32(width))
+	binary.BigEndian.PutUint32(ihdr[4:], uint32(height))
+	ihdr[8] = 16 // bit depth; colour type 0 (grey), compression, filter and interlace methods 0
+	bw := bufio.NewWriter(w)
+	bw.WriteString("\x89PNG\r\n\x1a\n")
+	writeChunk(bw, "IHDR", ihdr[:])
+	writeChunk(bw, "IDAT", idat.Bytes())
+	writeChunk(bw, "IEND", nil)
+	return bw.Flush() // bufio keeps the first write error
+}
+
+func absInt8(b byte) int {
+	v := int(int8(b))
+	if v < 0 {
+		return -v
+	}
+	return v
+}
+
+// writeChunk writes one PNG chunk: length, type, data and the CRC-32 of
+// type and data.
+func writeChunk(w *bufio.Writer, typ string, data []byte) {
+	var hdr [8]byte
+	binary.BigEndian.PutUint32(hdr[:4], uint32(len(data)))
+	copy(hdr[4:], typ)
+	w.Write(hdr[:])
+	w.Write(data)
+	crc := crc32.NewIEEE()
+	crc.Write(hdr[4:])
+	crc.Write(data)
+	var sum [4]byte
+	binary.BigEndian.PutUint32(sum[:], crc.Sum32())
+	w.Write(sum[:])
 }

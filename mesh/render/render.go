@@ -649,6 +649,24 @@ type shading struct {
 	light r3.Vec // unit, or zero
 }
 
+// pow returns c^Shininess, by repeated squaring when the exponent is a
+// small whole number (the default 32 takes five multiplications instead
+// of a math.Pow call per pixel).
+func (s *shading) pow(c float64) float64 {
+	e := s.opt.Shininess
+	if e != math.Trunc(e) || e > 1024 {
+		return math.Pow(c, e)
+	}
+	r := 1.0
+	for n := int(e); n > 0; n >>= 1 {
+		if n&1 == 1 {
+			r *= c
+		}
+		c *= c
+	}
+	return r
+}
+
 func (s *shading) shade(out []uint8, albedo [3]float64, n, d r3.Vec) {
 	lam := max(r3.Dot(n, s.light), 0)
 	k := s.opt.Ambient + s.opt.Diffuse*lam
@@ -657,7 +675,7 @@ func (s *shading) shade(out []uint8, albedo [3]float64, n, d r3.Vec) {
 		view := unit(r3.Scale(-1, d))
 		h := unit(r3.Add(s.light, view))
 		if c := r3.Dot(n, h); c > 0 {
-			spec = 255 * s.opt.Specular * math.Pow(c, s.opt.Shininess)
+			spec = 255 * s.opt.Specular * s.pow(c)
 		}
 	}
 	for ch := 0; ch < 3; ch++ {

@@ -671,3 +671,16 @@ func TestNoCracksOnSharedEdges(t *testing.T) {
 		}
 	}
 }
+
+// TestSpecularPower checks the whole-number fast path of the highlight
+// exponent against math.Pow.
+func TestSpecularPower(t *testing.T) {
+	for _, e := range []float64{0, 1, 2, 7, 32, 33.5, 100} {
+		s := shading{opt: Options{Shininess: e}}
+		for _, c := range []float64{0, 0.3, 0.9, 0.999, 1} {
+			if got, want := s.pow(c), math.Pow(c, e); math.Abs(got-want) > 1e-12*math.Max(1, want) {
+				t.Errorf("pow(%v, %v) = %v, want %v", c, e, got, want)
+			}
+		}
+	}
+}
