@@ -82,6 +82,16 @@ type mcWorker struct {
 	refs  []uint32
 }
 
+// mcWorkers keeps workers, with their scratch buffers and the capacity
+// of their arenas, between extractions.
+var mcWorkers = sync.Pool{New: func() any { return new(mcWorker) }}
+
+// reset empties the arenas, keeping their capacity.
+func (wk *mcWorker) reset() {
+	wk.pos, wk.nrm, wk.col = wk.pos[:0], wk.nrm[:0], wk.col[:0]
+	wk.edges, wk.refs, wk.cells = wk.edges[:0], wk.refs[:0], wk.cells[:0]
+}
+
 var (
 	// Corner offsets in the flag and scratch layouts.
 	flagCorner [8]int
@@ -111,11 +121,17 @@ func runMC(src mcSource, origin r3.Vec, h float64, iso float32, workers int) (*M
 		workers = 1
 	}
 	ws := make([]*mcWorker, workers)
+	defer func() {
+		for _, wk := range ws {
+			wk.reset()
+			mcWorkers.Put(wk)
+		}
+	}()
 	var next atomic.Int64
 	var wg sync.WaitGroup
 	const chunk = 4
 	for w := range ws {
-		ws[w] = &mcWorker{}
+		ws[w] = mcWorkers.Get().(*mcWorker)
 		wg.Add(1)
 		go func(w int) {
 			defer wg.Done()
