@@ -36,6 +36,11 @@
 // that cannot give a meaningful answer for degenerate input (fewer than
 // three non-collinear points for an alignment, say) return an error
 // wrapping ErrDegenerate.
+// Isosurface extraction treats a NaN or infinite lattice value as
+// unknown (the cells around it are skipped, which can open the
+// surface), counts a value equal to the iso level as outside (which can
+// leave zero-area triangles there, kept so the mesh stays closed), and
+// returns an empty mesh when nothing crosses the level.
 //
 // # Files
 //
