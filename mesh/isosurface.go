@@ -100,9 +100,9 @@ const BlockSize = 8
 const BlockValues = BlockSize * BlockSize * BlockSize
 
 // MaxBlockCoord bounds the block coordinates of a BlockVolume
-// (|coordinate| ≤ MaxBlockCoord), so that lattice indices stay well
-// inside 32 bits.
-const MaxBlockCoord = 1 << 24
+// (|coordinate| ≤ MaxBlockCoord): about ±8 million lattice points, ±8 km
+// at 1 mm spacing.
+const MaxBlockCoord = 1<<20 - 2
 
 // BlockKey is the integer coordinate of a block: block K holds lattice
 // points BlockSize·K + (0…BlockSize−1) along each axis.

@@ -70,7 +70,8 @@ type mcTileOut struct {
 type mcWorker struct {
 	vals    [padN3]float32
 	cols    [padN3]RGB
-	flags   [flagN * flagN * flagN]uint8 // bit 0 inside, bit 1 unknown
+	rowIn   [flagN * flagN]uint16 // per x row of points −1…8: inside bits
+	rowUnk  [flagN * flagN]uint16 // and unknown bits
 	needed  [ownedEdges]bool
 	localID [ownedEdges]int32
 	cells   []uint32 // own mixed cells: flag index << 8 | case
@@ -93,17 +94,27 @@ func (wk *mcWorker) reset() {
 }
 
 var (
-	// Corner offsets in the flag and scratch layouts.
-	flagCorner [8]int
-	padCorner  [8]int
-	padStride  = [3]int{1, padN, padN2}
+	// Corner offsets in the scratch layout.
+	padCorner [8]int
+	padStride = [3]int{1, padN, padN2}
+	// ownedDelta[e] is ownedIndex of cell edge e relative to the
+	// cell's minimum corner.
+	ownedDelta [12]int
 )
 
 func init() {
 	for c := 0; c < 8; c++ {
 		x, y, z := c&1, c>>1&1, c>>2&1
-		flagCorner[c] = x + flagN*y + flagN2*z
 		padCorner[c] = x + padN*y + padN2*z
+	}
+	for e := 0; e < 12; e++ {
+		// Edge e's lower corner and axis, as in newMCGeom.
+		a := e / 4
+		r := e % 4
+		u, v := otherAxes(a)
+		var d [3]int
+		d[u], d[v] = r&1, r>>1
+		ownedDelta[e] = ownedIndex(d[0], d[1], d[2], a)
 	}
 }
 
@@ -247,61 +258,75 @@ func (wk *mcWorker) tile(tab *mcTable, src mcSource, t int, origin r3.Vec, h flo
 	}
 	src.gather(t, wk.vals[:], cols)
 
-	// Flags for the points −1…8; skip tiles with no crossing there.
-	var any uint8
-	for z := 0; z < flagN; z++ {
-		for y := 0; y < flagN; y++ {
-			fi := flagN*y + flagN2*z
-			pi := padN*y + padN2*z
-			for x := 0; x < flagN; x++ {
-				v := wk.vals[pi+x]
-				var f uint8
-				if v-v != 0 { // NaN or ±Inf
-					f = 2
-				} else if v < iso {
-					f = 1
-				} else {
-					f = 4
-				}
-				wk.flags[fi+x] = f
-				any |= f
+	// Bit masks of the inside and unknown points −1…8 of each x row
+	// (bit x+1 for local x); skip tiles with no crossing there.
+	var anyIn, anyOut bool
+	for r := 0; r < flagN*flagN; r++ {
+		y, z := r%flagN, r/flagN
+		pi := padN*y + padN2*z
+		var in, unk uint16
+		for x := 0; x < flagN; x++ {
+			v := wk.vals[pi+x]
+			if v-v != 0 { // NaN or ±Inf
+				unk |= 1 << x
+			} else if v < iso {
+				in |= 1 << x
 			}
 		}
+		wk.rowIn[r], wk.rowUnk[r] = in, unk
+		anyIn = anyIn || in != 0
+		anyOut = anyOut || in|unk != 1<<flagN-1
 	}
-	if any&5 != 5 {
+	if !anyIn || !anyOut {
 		return out
 	}
 
 	// Cells with minimum corner −1…7: mark the owned edges they cross,
-	// and list the tile's own cells (0…7).
+	// and list the tile's own cells (0…7). The case of the cell at x in
+	// the cell row (y, z) takes its corner bits c = x + 2y + 4z from the
+	// four point rows around it.
 	wk.cells = wk.cells[:0]
+	const full = 1<<flagN - 1
 	for cz := -1; cz < BlockSize; cz++ {
 		for cy := -1; cy < BlockSize; cy++ {
+			r := (cy + 1) + flagN*(cz+1)
+			r00, r10, r01, r11 := wk.rowIn[r], wk.rowIn[r+1], wk.rowIn[r+flagN], wk.rowIn[r+flagN+1]
+			u := wk.rowUnk[r] | wk.rowUnk[r+1] | wk.rowUnk[r+flagN] | wk.rowUnk[r+flagN+1]
+			if r00|r10|r01|r11 == 0 || (r00&r10&r01&r11 == full) || u == full {
+				continue
+			}
 			for cx := -1; cx < BlockSize; cx++ {
-				fi := (cx + 1) + flagN*(cy+1) + flagN2*(cz+1)
-				var cs, or uint8
-				for c := 0; c < 8; c++ {
-					f := wk.flags[fi+flagCorner[c]]
-					cs |= (f & 1) << c
-					or |= f
+				sh := uint(cx + 1)
+				if u>>sh&3 != 0 {
+					continue
 				}
-				if or&2 != 0 || cs == 0 || cs == 255 {
+				cs := uint8(r00>>sh&3 | (r10>>sh&3)<<2 | (r01>>sh&3)<<4 | (r11>>sh&3)<<6)
+				if cs == 0 || cs == 255 {
 					continue
 				}
 				mask := tab.crossed[cs]
-				inner := cx >= 0 && cy >= 0 && cz >= 0 && cx < BlockSize-1 && cy < BlockSize-1 && cz < BlockSize-1
-				for e := 0; e < 12; e++ {
-					if mask>>e&1 == 0 {
-						continue
+				if cx >= 0 && cy >= 0 && cz >= 0 && cx < BlockSize-1 && cy < BlockSize-1 && cz < BlockSize-1 {
+					base := ownedIndex(cx, cy, cz, 0)
+					for e := 0; e < 12; e++ {
+						if mask>>e&1 != 0 {
+							wk.needed[base+ownedDelta[e]] = true
+						}
 					}
-					ed := tab.geom.edges[e]
-					x, y, z := cx+int(ed.c0&1), cy+int(ed.c0>>1&1), cz+int(ed.c0>>2&1)
-					if !inner && (x < 0 || y < 0 || z < 0 || x >= BlockSize || y >= BlockSize || z >= BlockSize) {
-						continue
+				} else {
+					for e := 0; e < 12; e++ {
+						if mask>>e&1 == 0 {
+							continue
+						}
+						ed := tab.geom.edges[e]
+						x, y, z := cx+int(ed.c0&1), cy+int(ed.c0>>1&1), cz+int(ed.c0>>2&1)
+						if x < 0 || y < 0 || z < 0 || x >= BlockSize || y >= BlockSize || z >= BlockSize {
+							continue
+						}
+						wk.needed[ownedIndex(x, y, z, int(ed.axis))] = true
 					}
-					wk.needed[ownedIndex(x, y, z, int(ed.axis))] = true
 				}
 				if cx >= 0 && cy >= 0 && cz >= 0 {
+					fi := (cx + 1) + flagN*(cy+1) + flagN2*(cz+1)
 					wk.cells = append(wk.cells, uint32(fi)<<8|uint32(cs))
 				}
 			}
@@ -450,7 +475,7 @@ func (c *vertexCtx) edgeVertex(x, y, z, a int) (r3.Vec, r3.Vec, RGB) {
 		Y: g0[1] + t*(g1[1]-g0[1]),
 		Z: g0[2] + t*(g1[2]-g0[2]),
 	}
-	nn := r3.Norm(n)
+	nn := math.Sqrt(n.X*n.X + n.Y*n.Y + n.Z*n.Z)
 	if nn > 0 && !math.IsInf(nn, 0) {
 		n = r3.Scale(1/nn, n)
 	} else {
@@ -614,7 +639,7 @@ func (s *gridSource) gather(t int, vals []float32, cols []RGB) {
 // blockSource serves a BlockVolume's blocks as tiles, in key order.
 type blockSource struct {
 	blocks []Block // sorted by key
-	index  map[BlockKey]int32
+	index  map[uint64]int32 // packKey(key) → position in blocks
 	ups    [][8]int32 // per tile, the tile at key + (dx, dy, dz), slot dx|dy<<1|dz<<2
 	color  bool
 }
@@ -640,7 +665,7 @@ func cmpInt32(a, b int32) int {
 }
 
 func newBlockSource(blocks []Block) (*blockSource, error) {
-	s := &blockSource{blocks: slices.Clone(blocks), index: make(map[BlockKey]int32, len(blocks))}
+	s := &blockSource{blocks: slices.Clone(blocks), index: make(map[uint64]int32, len(blocks))}
 	slices.SortFunc(s.blocks, func(a, b Block) int { return blockLess(a.Key, b.Key) })
 	for i, b := range s.blocks {
 		k := b.Key
@@ -663,7 +688,7 @@ func newBlockSource(blocks []Block) (*blockSource, error) {
 		if i > 0 && s.blocks[i-1].Key == k {
 			return nil, fmt.Errorf("mesh: block %v listed twice", k)
 		}
-		s.index[k] = int32(i)
+		s.index[packKey(k.X, k.Y, k.Z)] = int32(i)
 	}
 	s.ups = make([][8]int32, len(s.blocks))
 	for i, b := range s.blocks {
@@ -674,8 +699,15 @@ func newBlockSource(blocks []Block) (*blockSource, error) {
 	return s, nil
 }
 
+// packKey packs block coordinates (within ±(MaxBlockCoord+1), so in
+// [1, 2²¹) after the offset) into one map key of 63 bits.
+func packKey(x, y, z int32) uint64 {
+	const off = 1 << 20
+	return uint64(x+off) | uint64(y+off)<<21 | uint64(z+off)<<42
+}
+
 func (s *blockSource) find(k BlockKey, dx, dy, dz int) int32 {
-	j, ok := s.index[BlockKey{k.X + int32(dx), k.Y + int32(dy), k.Z + int32(dz)}]
+	j, ok := s.index[packKey(k.X+int32(dx), k.Y+int32(dy), k.Z+int32(dz))]
 	if !ok {
 		return -1
 	}
