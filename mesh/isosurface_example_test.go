@@ -11,7 +11,8 @@ import (
 
 // A unit sphere as a signed distance field (negative inside), sampled
 // every 0.1 and extracted at level 0. The enclosed volume comes close to
-// 4π/3 ≈ 4.189; the mesh is closed, with Euler characteristic 2.
+// 4π/3 ≈ 4.189 and the area 4π ≈ 12.566 from below; the mesh is
+// closed, with Euler characteristic 2.
 func ExampleMarchingCubes() {
 	sphere := func(p r3.Vec) float64 { return math.Sqrt(p.X*p.X+p.Y*p.Y+p.Z*p.Z) - 1 }
 	g, err := mesh.SampleGrid(sphere, nil, r3.Vec{X: -1.23, Y: -1.23, Z: -1.23}, r3.Vec{X: 1.2, Y: 1.2, Z: 1.2}, 0.1)
@@ -24,21 +25,12 @@ func ExampleMarchingCubes() {
 		fmt.Println(err)
 		return
 	}
-	vol := 0.0
-	edges := map[[2]uint32]bool{}
-	for _, f := range m.Faces {
-		a, b, c := m.Vertices[f[0]], m.Vertices[f[1]], m.Vertices[f[2]]
-		vol += r3.Dot(a, r3.Cross(b, c)) / 6
-		for k := 0; k < 3; k++ {
-			u, v := f[k], f[(k+1)%3]
-			edges[[2]uint32{min(u, v), max(u, v)}] = true
-		}
-	}
-	fmt.Printf("%d vertices, %d faces, Euler characteristic %d\n", len(m.Vertices), len(m.Faces), len(m.Vertices)-len(edges)+len(m.Faces))
-	fmt.Printf("volume %.3f\n", vol)
+	fmt.Printf("%d vertices, %d faces, watertight %v, Euler characteristic %d\n",
+		len(m.Vertices), len(m.Faces), m.IsWatertight(), m.EulerCharacteristic())
+	fmt.Printf("volume %.3f, area %.3f\n", m.SignedVolume(), m.Area())
 	// Output:
-	// 1896 vertices, 3788 faces, Euler characteristic 2
-	// volume 4.164
+	// 1896 vertices, 3788 faces, watertight true, Euler characteristic 2
+	// volume 4.164, area 12.527
 }
 
 // A sparse field in 8³ blocks, as a block-hashed TSDF holds it: here a
@@ -79,20 +71,10 @@ func ExampleMarchBlocks() {
 		fmt.Println(err)
 		return
 	}
-	count := map[[2]uint32]int{}
-	for _, f := range m.Faces {
-		for k := 0; k < 3; k++ {
-			u, w := f[k], f[(k+1)%3]
-			count[[2]uint32{min(u, w), max(u, w)}]++
-		}
-	}
-	closed := true
-	for _, n := range count {
-		closed = closed && n == 2
-	}
-	fmt.Printf("%d blocks, %d faces, every edge in two faces: %v\n", len(v.Blocks), len(m.Faces), closed)
+	fmt.Printf("%d blocks, %d faces, watertight %v, consistently oriented %v\n",
+		len(v.Blocks), len(m.Faces), m.IsWatertight(), m.IsConsistentlyOriented())
 	// Output:
-	// 8 blocks, 824 faces, every edge in two faces: true
+	// 8 blocks, 824 faces, watertight true, consistently oriented true
 }
 
 func floorDiv(a, b int) int {

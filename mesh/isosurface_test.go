@@ -15,30 +15,6 @@ import (
 
 // ---- helpers (prefixed iso to keep the package's test namespace tidy)
 
-// isoArea is the sum of the triangle areas.
-func isoArea(m *Mesh) float64 {
-	var a float64
-	for _, f := range m.Faces {
-		p, q, r := m.Vertices[f[0]], m.Vertices[f[1]], m.Vertices[f[2]]
-		a += r3.Norm(r3.Cross(r3.Sub(q, p), r3.Sub(r, p))) / 2
-	}
-	return a
-}
-
-// isoSignedVolume is the enclosed volume by the divergence theorem:
-// V = Σ p·(q×r)/6 over the faces (Gauss's theorem applied to the
-// field x/3; a standard result, e.g. Zhang & Chen 2001, "Efficient
-// feature extraction for 2D/3D objects in mesh representation", ICIP).
-// Positive for an outward-oriented closed mesh.
-func isoSignedVolume(m *Mesh) float64 {
-	var v float64
-	for _, f := range m.Faces {
-		p, q, r := m.Vertices[f[0]], m.Vertices[f[1]], m.Vertices[f[2]]
-		v += r3.Dot(p, r3.Cross(q, r))
-	}
-	return v / 6
-}
-
 type isoEdge struct{ a, b uint32 }
 
 // isoTopology checks that m is a closed, consistently oriented
@@ -85,7 +61,15 @@ func isoTopology(t *testing.T, m *Mesh, open bool) (euler, boundary int) {
 			t.Fatalf("edge %v has one triangle: the mesh has a crack", e)
 		}
 	}
-	return len(m.Vertices) - edges + len(m.Faces), boundary
+	euler = len(m.Vertices) - edges + len(m.Faces)
+	// Cross-check with the package's own edge analysis (metrics.go).
+	if !m.IsConsistentlyOriented() || (!open && !m.IsWatertight() && len(m.Faces) > 0) {
+		t.Fatalf("Mesh.IsConsistentlyOriented %v, Mesh.IsWatertight %v disagree with the edge count", m.IsConsistentlyOriented(), m.IsWatertight())
+	}
+	if got := m.EulerCharacteristic(); got != euler {
+		t.Fatalf("Mesh.EulerCharacteristic %d, counted %d", got, euler)
+	}
+	return euler, boundary
 }
 
 // isoTriArea returns the area of face f.
@@ -208,7 +192,7 @@ func TestMarchingCubesSphere(t *testing.T) {
 		if euler != 2 {
 			t.Errorf("h=%v: Euler characteristic %d, want 2", h, euler)
 		}
-		vol, area := isoSignedVolume(m), isoArea(m)
+		vol, area := m.SignedVolume(), m.Area()
 		vMin, vMax, aMin, aMax, delta := sphereBounds(r, h)
 		if vol < vMin || vol > vMax {
 			t.Errorf("h=%v: volume %.6f outside [%.6f, %.6f] (4πr³/3 = %.6f)", h, vol, vMin, vMax, 4*math.Pi/3)
@@ -326,7 +310,7 @@ func TestMarchingCubesBox(t *testing.T) {
 		s := a + b + cc
 		vLo, vHi := -(8*h*h*s + 216*h*h*h), 1e-9
 		aLo, aHi := -(4.69*h*s + 432*h*h), 1.66*h*s+432*h*h
-		dV, dA := isoSignedVolume(m)-wantV, isoArea(m)-wantA
+		dV, dA := m.SignedVolume()-wantV, m.Area()-wantA
 		t.Logf("h=%v: volume error %+.3e in [%+.3e, %+.3e], area error %+.3e in [%+.3e, %+.3e]", h, dV, vLo, vHi, dA, aLo, aHi)
 		if dV < vLo || dV > vHi {
 			t.Errorf("h=%v: volume error %v outside [%v, %v]", h, dV, vLo, vHi)
@@ -399,7 +383,7 @@ func TestMarchingCubesTorus(t *testing.T) {
 	wantV, wantA := torusV(r), 4*math.Pi*math.Pi*R*r
 	vLo, vHi := torusV(r-epsIn)-wantV, torusV(r+epsOut)-wantV
 	tolA := wantA * (h / r) * (h / r)
-	dV, dA := isoSignedVolume(m)-wantV, isoArea(m)-wantA
+	dV, dA := m.SignedVolume()-wantV, m.Area()-wantA
 	t.Logf("volume error %+.3e in [%+.3e, %+.3e], area error %+.3e (tol %.3e)", dV, vLo, vHi, dA, tolA)
 	if dV < vLo || dV > vHi {
 		t.Errorf("volume error %v outside [%v, %v]", dV, vLo, vHi)
@@ -464,7 +448,7 @@ func TestMarchingCubesNoiseWatertight(t *testing.T) {
 			}
 			// The border is outside, so the inside is a union of bounded
 			// regions: the enclosed volume is positive.
-			if vol := isoSignedVolume(m); len(m.Faces) > 0 && !(vol > 0) {
+			if vol := m.SignedVolume(); len(m.Faces) > 0 && !(vol > 0) {
 				t.Errorf("seed %d iso %v: enclosed volume %v not positive", seed, iso, vol)
 			}
 		}
@@ -546,7 +530,7 @@ func TestMarchingCubesAmbiguousConfigurations(t *testing.T) {
 			}
 			m := mustMarch(t, g, 0)
 			isoTopology(t, m, false)
-			if vol := isoSignedVolume(m); cs != 0 && !(vol > 0) {
+			if vol := m.SignedVolume(); cs != 0 && !(vol > 0) {
 				t.Errorf("case %#02x joined %#02x: volume %v not positive", cs, j, vol)
 			}
 		}
@@ -1065,7 +1049,7 @@ func TestMarchingCubesEqualToIso(t *testing.T) {
 			}
 		}
 	}
-	if vol := isoSignedVolume(m); !(vol > 0) {
+	if vol := m.SignedVolume(); !(vol > 0) {
 		t.Errorf("volume %v not positive", vol)
 	}
 	t.Logf("%d lattice values equal iso, %d zero-area triangles", zeros, degenerate)

@@ -638,9 +638,9 @@ func (s *gridSource) gather(t int, vals []float32, cols []RGB) {
 
 // blockSource serves a BlockVolume's blocks as tiles, in key order.
 type blockSource struct {
-	blocks []Block // sorted by key
+	blocks []Block          // sorted by key
 	index  map[uint64]int32 // packKey(key) → position in blocks
-	ups    [][8]int32 // per tile, the tile at key + (dx, dy, dz), slot dx|dy<<1|dz<<2
+	ups    [][8]int32       // per tile, the tile at key + (dx, dy, dz), slot dx|dy<<1|dz<<2
 	color  bool
 }
 
