@@ -56,23 +56,23 @@ type ManifestFrame struct {
 // Manifest is the JSON document Export writes as manifest.json for the
 // cell's integrator. doc.go describes each field.
 type Manifest struct {
-	Format        string         `json:"format"`
-	FormatVersion int            `json:"format_version"`
-	Part          string         `json:"part"`
-	Revision      int            `json:"revision"`
-	Filed         time.Time      `json:"filed"`
-	Exported      time.Time      `json:"exported"`
-	Units         string         `json:"units"`
-	Frame         ManifestFrame  `json:"frame"`
+	Format        string          `json:"format"`
+	FormatVersion int             `json:"format_version"`
+	Part          string          `json:"part"`
+	Revision      int             `json:"revision"`
+	Filed         time.Time       `json:"filed"`
+	Exported      time.Time       `json:"exported"`
+	Units         string          `json:"units"`
+	Frame         ManifestFrame   `json:"frame"`
 	Files         []ManifestEntry `json:"files"`
-	PPF           PPFParams      `json:"ppf"`
-	Acceptance    Acceptance     `json:"acceptance"`
-	Diameter      float64        `json:"diameter_m"`
-	Symmetry      Symmetry       `json:"symmetry"`
-	Verdict       Verdict        `json:"verdict"`
-	Reasons       []string       `json:"reasons"`
-	Provenance    Provenance     `json:"provenance"`
-	Safety        string         `json:"safety"`
+	PPF           PPFParams       `json:"ppf"`
+	Acceptance    Acceptance      `json:"acceptance"`
+	Diameter      float64         `json:"diameter_m"`
+	Symmetry      Symmetry        `json:"symmetry"`
+	Verdict       Verdict         `json:"verdict"`
+	Reasons       []string        `json:"reasons"`
+	Provenance    Provenance      `json:"provenance"`
+	Safety        string          `json:"safety"`
 }
 
 // frameConvention is the manifest's words on the transform.

@@ -126,10 +126,10 @@ type Frame struct {
 // with (Drost, Ulrich, Navab & Ilic 2010, CVPR), so that the cell's
 // estimator quantises scene features the same way.
 type PPFParams struct {
-	SamplingStep  float64 `json:"sampling_step_m"`  // model sub-sampling distance, metres
-	DistanceStep  float64 `json:"distance_step_m"`  // quantisation of ‖d‖, metres
-	AngleBins     int     `json:"angle_bins"`       // bins over [0, π] for the three angles and α
-	RefPointEvery int     `json:"ref_point_every"`  // scene reference-point stride suggested
+	SamplingStep  float64         `json:"sampling_step_m"` // model sub-sampling distance, metres
+	DistanceStep  float64         `json:"distance_step_m"` // quantisation of ‖d‖, metres
+	AngleBins     int             `json:"angle_bins"`      // bins over [0, π] for the three angles and α
+	RefPointEvery int             `json:"ref_point_every"` // scene reference-point stride suggested
 	Extra         json.RawMessage `json:"extra,omitempty"` // anything else the tables' builder recorded
 }
 
