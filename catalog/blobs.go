@@ -15,11 +15,15 @@ import (
 	"path/filepath"
 	"runtime"
 	"strings"
+	"sync"
 )
 
 // copyChunk is the unit in which blobs are copied; cancellation is
 // checked between chunks.
 const copyChunk = 1 << 20
+
+// chunkPool recycles copy buffers: filing and verifying copy many files.
+var chunkPool = sync.Pool{New: func() any { b := make([]byte, copyChunk); return &b }}
 
 // validSHA reports whether s is 64 lowercase hex digits.
 func validSHA(s string) bool {
@@ -75,7 +79,9 @@ type staged struct {
 // copyHashed copies r to w in chunks, hashing on the way and honouring
 // ctx between chunks.
 func copyHashed(ctx context.Context, w io.Writer, r io.Reader, h hash.Hash) (int64, error) {
-	buf := make([]byte, copyChunk)
+	bp := chunkPool.Get().(*[]byte)
+	defer chunkPool.Put(bp)
+	buf := *bp
 	var n int64
 	for {
 		if err := ctx.Err(); err != nil {

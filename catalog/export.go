@@ -1,6 +1,7 @@
 package catalog
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -12,6 +13,8 @@ import (
 	"path/filepath"
 	"sort"
 	"time"
+
+	"github.com/scanfold/scanfold/mesh"
 )
 
 // ManifestFormat and ManifestVersion identify the manifest's layout
@@ -47,10 +50,10 @@ type ManifestEntry struct {
 // ManifestFrame is the manifest's frame section.
 type ManifestFrame struct {
 	Description string `json:"description"`
-	// PartToSweep: row-major homogeneous 4×4, x_sweep = M·[x_part 1]ᵀ,
-	// metres.
-	PartToSweep [16]float64 `json:"part_to_sweep"`
-	Convention  string      `json:"convention"`
+	// PartToSweep: homogeneous 4×4 as four rows,
+	// x_sweep = M·[x_part 1]ᵀ, metres.
+	PartToSweep [4][4]float64 `json:"part_to_sweep"`
+	Convention  string        `json:"convention"`
 }
 
 // Manifest is the JSON document Export writes as manifest.json for the
@@ -76,7 +79,7 @@ type Manifest struct {
 }
 
 // frameConvention is the manifest's words on the transform.
-const frameConvention = "part_to_sweep is a row-major homogeneous 4x4 rigid transform in metres: " +
+const frameConvention = "part_to_sweep is a homogeneous 4x4 rigid transform in metres, given as four rows: " +
 	"a point p given in the part frame (the frame of every exported model file) is at " +
 	"part_to_sweep * [p 1]^T in the sweep's world frame (the first frame's camera frame: " +
 	"x right, y down, z forward)."
@@ -98,9 +101,25 @@ func (s *Store) ExportContext(ctx context.Context, name string, rev int, toDir s
 		return nil, err
 	}
 	ref := FormatRef(r.Part, r.Number)
-	if err := prepareExportDir(toDir); err != nil {
+	created, err := prepareExportDir(toDir)
+	if err != nil {
 		return nil, fmt.Errorf("%w (exporting %s)", err, ref)
 	}
+	// On failure, take back what this export wrote: the folder was new
+	// or empty.
+	var written []string
+	ok := false
+	defer func() {
+		if ok {
+			return
+		}
+		for _, f := range written {
+			os.Remove(filepath.Join(toDir, f))
+		}
+		if created {
+			os.Remove(toDir)
+		}
+	}()
 	m := &Manifest{
 		Format:        ManifestFormat,
 		FormatVersion: ManifestVersion,
@@ -109,7 +128,7 @@ func (s *Store) ExportContext(ctx context.Context, name string, rev int, toDir s
 		Filed:         r.Filed,
 		Exported:      time.Now().UTC(),
 		Units:         "metres",
-		Frame:         ManifestFrame{Description: r.Frame.Description, PartToSweep: r.Frame.PartToSweep, Convention: frameConvention},
+		Frame:         ManifestFrame{Description: r.Frame.Description, PartToSweep: rows4(r.Frame.PartToSweep), Convention: frameConvention},
 		PPF:           r.PPF,
 		Acceptance:    r.Acceptance,
 		Diameter:      r.Diameter,
@@ -133,17 +152,29 @@ func (s *Store) ExportContext(ctx context.Context, name string, rev int, toDir s
 		}
 		b := r.Blobs[role]
 		file := ExportName(role, b.MediaType)
+		written = append(written, file)
 		if err := s.exportBlob(b, filepath.Join(toDir, file)); err != nil {
 			return nil, fmt.Errorf("%w (exporting %s role %q)", err, ref, role)
 		}
 		m.Files = append(m.Files, ManifestEntry{File: file, Role: role, MediaType: b.MediaType, SHA256: b.SHA256, Size: b.Size})
 	}
-	// MESH-CONVERSION
-	data, err := json.MarshalIndent(m, "", "  ")
-	if err != nil {
+	if b, ok := r.Blobs[RoleMesh]; ok && b.MediaType == MediaPLY {
+		written = append(written, RoleMesh+".stl", RoleMesh+".obj")
+		derived, err := convertMesh(toDir, ExportName(RoleMesh, MediaPLY), RoleMesh)
+		if err != nil {
+			return nil, fmt.Errorf("%w (exporting %s)", err, ref)
+		}
+		m.Files = append(m.Files, derived...)
+	}
+	var buf bytes.Buffer
+	enc := json.NewEncoder(&buf)
+	enc.SetEscapeHTML(false) // reasons such as "coverage < 95 %" stay readable
+	enc.SetIndent("", "  ")
+	if err := enc.Encode(m); err != nil {
 		return nil, fmt.Errorf("catalog: exporting %s: encode manifest: %w", ref, err)
 	}
-	data = append(data, '\n')
+	data := buf.Bytes()
+	written = append(written, ManifestName)
 	if err := writeAtomic(filepath.Join(toDir, ManifestName), func(w io.Writer) error {
 		_, err := w.Write(data)
 		return err
@@ -153,32 +184,70 @@ func (s *Store) ExportContext(ctx context.Context, name string, rev int, toDir s
 	if err := syncDir(toDir); err != nil {
 		return nil, fmt.Errorf("catalog: exporting %s: sync %s: %w", ref, toDir, err)
 	}
+	ok = true
 	return m, nil
 }
 
-// prepareExportDir creates dir, or checks that it is an empty folder.
-func prepareExportDir(dir string) error {
+// convertMesh reads the exported PLY mesh in dir and writes it again as
+// binary STL and as OBJ beside it, through package mesh (which writes
+// each file atomically). STL keeps only the triangles (no colours); OBJ
+// keeps vertex colours as "v x y z r g b". Both stay in metres and in
+// the part frame.
+func convertMesh(dir, plyName, role string) ([]ManifestEntry, error) {
+	src := filepath.Join(dir, plyName)
+	m, err := mesh.LoadMesh(src)
+	if err != nil {
+		return nil, fmt.Errorf("catalog: role %q: read %s for conversion: %w", role, src, err)
+	}
+	var out []ManifestEntry
+	for _, c := range []struct{ ext, media string }{{".stl", MediaSTL}, {".obj", MediaOBJ}} {
+		name := role + c.ext
+		path := filepath.Join(dir, name)
+		if err := mesh.SaveMesh(path, m); err != nil {
+			return nil, fmt.Errorf("catalog: role %q: write %s: %w", role, path, err)
+		}
+		sum, size, err := hashFile(context.Background(), path)
+		if err != nil {
+			return nil, fmt.Errorf("catalog: role %q: hash %s: %w", role, path, err)
+		}
+		out = append(out, ManifestEntry{File: name, Role: role, MediaType: c.media, SHA256: sum, Size: size, DerivedFrom: plyName})
+	}
+	return out, nil
+}
+
+// rows4 turns a row-major 4×4 into its four rows.
+func rows4(m [16]float64) [4][4]float64 {
+	var r [4][4]float64
+	for i := range 4 {
+		copy(r[i][:], m[4*i:4*i+4])
+	}
+	return r
+}
+
+// prepareExportDir creates dir, or checks that it is an empty folder;
+// it reports whether it created it.
+func prepareExportDir(dir string) (bool, error) {
 	st, err := os.Stat(dir)
 	if errors.Is(err, fs.ErrNotExist) {
 		if err := os.MkdirAll(dir, 0o755); err != nil {
-			return fmt.Errorf("catalog: create export folder %s: %w", dir, err)
+			return false, fmt.Errorf("catalog: create export folder %s: %w", dir, err)
 		}
-		return nil
+		return true, nil
 	}
 	if err != nil {
-		return fmt.Errorf("catalog: export folder %s: %w", dir, err)
+		return false, fmt.Errorf("catalog: export folder %s: %w", dir, err)
 	}
 	if !st.IsDir() {
-		return fmt.Errorf("%w: export target %s is a file", ErrExists, dir)
+		return false, fmt.Errorf("%w: export target %s is a file", ErrExists, dir)
 	}
 	entries, err := os.ReadDir(dir)
 	if err != nil {
-		return fmt.Errorf("catalog: read export folder %s: %w", dir, err)
+		return false, fmt.Errorf("catalog: read export folder %s: %w", dir, err)
 	}
 	if len(entries) > 0 {
-		return fmt.Errorf("%w: export folder %s is not empty (holds %q); give a new or empty folder", ErrExists, dir, entries[0].Name())
+		return false, fmt.Errorf("%w: export folder %s is not empty (holds %q); give a new or empty folder", ErrExists, dir, entries[0].Name())
 	}
-	return nil
+	return false, nil
 }
 
 // exportBlob copies a blob to path through a hash-checking reader; the

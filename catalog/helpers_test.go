@@ -1,12 +1,16 @@
 package catalog
 
 import (
+	"bytes"
 	"encoding/json"
 	"fmt"
 	"math/rand/v2"
 	"path/filepath"
 	"testing"
 	"time"
+
+	"github.com/scanfold/scanfold/mesh"
+	"gonum.org/v1/gonum/spatial/r3"
 )
 
 // openTest opens a fresh catalog in a temp folder.
@@ -46,7 +50,7 @@ func testFiling(part string, seed uint64) Filing {
 	return Filing{
 		Part: part,
 		Blobs: map[string]BlobSource{
-			RoleMesh:       {Data: randBytes(seed*4+1, 3000)},
+			RoleMesh:       {Data: testMeshPLY(seed)},
 			RoleCloud:      {Data: randBytes(seed*4+2, 2000)},
 			RoleTables:     {Data: randBytes(seed*4+3, 1000)},
 			RoleReportJSON: {Data: report},
@@ -77,3 +81,27 @@ func testFiling(part string, seed uint64) Filing {
 }
 
 func nan() float64 { var z float64; return z / z }
+
+// testMesh is a seeded triangle soup with colours (invented data: the
+// store only copies and converts it).
+func testMesh(seed uint64) *mesh.Mesh {
+	r := rand.New(rand.NewPCG(seed, 99))
+	m := &mesh.Mesh{}
+	for i := 0; i < 60; i++ {
+		m.Vertices = append(m.Vertices, r3.Vec{X: r.Float64() * 0.05, Y: r.Float64() * 0.05, Z: r.Float64() * 0.02})
+		m.Colors = append(m.Colors, mesh.RGB{R: uint8(r.IntN(256)), G: uint8(r.IntN(256)), B: uint8(r.IntN(256))})
+	}
+	for i := 0; i+2 < 60; i += 3 {
+		m.Faces = append(m.Faces, mesh.Face{uint32(i), uint32(i + 1), uint32(i + 2)})
+	}
+	return m
+}
+
+// testMeshPLY is testMesh as binary PLY.
+func testMeshPLY(seed uint64) []byte {
+	var b bytes.Buffer
+	if err := mesh.WritePLY(&b, testMesh(seed), mesh.DefaultPLYOptions()); err != nil {
+		panic(err)
+	}
+	return b.Bytes()
+}
