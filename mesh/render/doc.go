@@ -54,5 +54,8 @@
 // errors naming the object. Back faces are drawn (a real sensor sees
 // the inside of an open surface) unless Options.CullBackFaces is set;
 // their normal is flipped to face the camera. Where two faces meet
-// exactly at a pixel centre, either may be reported.
+// exactly at a pixel centre, either may be reported; a pixel centre that
+// fauxgl's rounding drops from both faces of a shared edge is recovered
+// from the faces seen at its 4-neighbours (see Renderer.RenderInto), so
+// flat quads and boxes render without cracks.
 package render

@@ -272,6 +272,12 @@ const maxFaces = math.MaxUint32 - 1
 // RenderInto draws objs into dst, reusing dst's buffers when they fit the
 // renderer's intrinsics (and replacing them when they do not). On error
 // dst's contents are unspecified.
+//
+// Faces are rasterised one at a time in order (fauxgl's parallel
+// DrawTriangles would race on the shader's face id and break ties at
+// equal depth in a different order from run to run), then every pixel is
+// resolved exactly; one frame uses one core. Render frames in parallel
+// with one Renderer per goroutine.
 func (r *Renderer) RenderInto(dst *Frame, objs []Object, opt Options) error {
 	if dst == nil {
 		return errors.New("render: nil destination frame")

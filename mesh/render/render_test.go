@@ -181,7 +181,7 @@ func TestTriangleCoverageProjects(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		for trial := 0; trial < 40; trial++ {
+		for trial := 0; trial < 20; trial++ {
 			z := 0.3 + 2*rng.Float64()
 			centre := k.BackProject(float64(k.Width)*(0.2+0.6*rng.Float64()), float64(k.Height)*(0.2+0.6*rng.Float64()), z)
 			size := z * 20 / k.Fx // about 20 pixels across
