@@ -239,7 +239,9 @@ func AddNoise(clean *Frame, opt NoiseOptions, rng *rand.Rand) (*Frame, error) {
 // Apply writes into dst a noisy version of the clean frame src, drawing
 // from rng; dst's buffers are reused when they fit, and dst must not be
 // src. Depth and Color carry the noise; Normal, Object and Triangle are
-// copied from src unchanged, as ground truth of the clean render.
+// copied from src unchanged, as ground truth of the clean render. The
+// viewing angle θ comes from src.Normal; a pixel with depth but a zero
+// normal (a frame built from a depth image alone) is taken as face-on.
 //
 // For every pixel p, in order: the lateral offset picks the source pixel
 // q (σ_L from the viewing angle at p, or at θ = 0 where p sees nothing);
@@ -271,9 +273,14 @@ func (s *Sensor) Apply(dst, src *Frame, rng *rand.Rand) error {
 	for j := 0; j < h; j++ {
 		for i := 0; i < w; i++ {
 			p := j*w + i
+			nx, ny, nz := float64(src.Normal[3*p]), float64(src.Normal[3*p+1]), float64(src.Normal[3*p+2])
+			nn := math.Sqrt(nx*nx + ny*ny + nz*nz)
+			if nn == 0 { // no normal known: take the surface as face-on
+				s.theta[p] = 0
+				continue
+			}
 			d := k.Ray(float64(i), float64(j))
-			c := math.Abs(float64(src.Normal[3*p])*d.X+float64(src.Normal[3*p+1])*d.Y+float64(src.Normal[3*p+2])*d.Z) /
-				math.Sqrt(d.X*d.X+d.Y*d.Y+1)
+			c := math.Abs(nx*d.X+ny*d.Y+nz*d.Z) / (nn * math.Sqrt(d.X*d.X+d.Y*d.Y+1))
 			s.theta[p] = float32(math.Acos(math.Min(c, 1)))
 		}
 	}

@@ -486,3 +486,22 @@ func TestNoiseErrors(t *testing.T) {
 		t.Errorf("short depth: %v", err)
 	}
 }
+
+// TestNoiseWithoutNormals checks that a frame with depth but no normals
+// (built from a depth image) is treated as face-on: no grazing dropouts.
+func TestNoiseWithoutNormals(t *testing.T) {
+	k := mesh.Intrinsics{Width: 40, Height: 30, Fx: 40, Fy: 40, Cx: 19.5, Cy: 14.5}
+	f := planeFrame(t, k, 1)
+	clear(f.Normal)
+	opt := NoNoise()
+	opt.GrazingStart, opt.GrazingMax = 1, 1.2
+	noisy, err := AddNoise(f, opt, rand.New(rand.NewPCG(1, 1)))
+	if err != nil {
+		t.Fatal(err)
+	}
+	for p, z := range noisy.Depth {
+		if z != f.Depth[p] {
+			t.Fatalf("pixel %d: depth %v, want %v", p, z, f.Depth[p])
+		}
+	}
+}
