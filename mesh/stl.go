@@ -92,9 +92,9 @@ func decodeSTL(data []byte) (*Mesh, error) {
 		// Bounded: count·50 bytes are present.
 		c.m.Vertices = make([]r3.Vec, 0, count/2+3)
 		c.m.Faces = make([]Face, 0, count)
-		c.index = make(map[[3]float32]uint32, count/2+3)
+		c.index = make(map[stlKey]uint32, count/2+3)
 	} else {
-		c.index = make(map[[3]float32]uint32)
+		c.index = make(map[stlKey]uint32)
 	}
 	err := stl.CopyAll(bytes.NewReader(data), c)
 	if c.err != nil {
@@ -172,11 +172,27 @@ func stlASCIIError(data []byte, count uint32, err error) error {
 	return fe
 }
 
+// stlKey is a position's float32 bits, with −0 taken as +0 so that the
+// two zeros weld as the == of floats would have them. Hashing the bits
+// is several times faster than hashing floats (profiled).
+type stlKey [3]uint32
+
+func stlKeyOf(v stl.Vec3) stlKey {
+	var k stlKey
+	for i, x := range v {
+		if x == 0 {
+			x = 0 // −0 → +0
+		}
+		k[i] = math.Float32bits(x)
+	}
+	return k
+}
+
 // stlCollector receives the library's triangles, checks them and welds
 // their vertices.
 type stlCollector struct {
 	m      Mesh
-	index  map[[3]float32]uint32
+	index  map[stlKey]uint32
 	binary bool
 	n      int64 // triangles seen
 	err    *FileError
@@ -208,7 +224,7 @@ func (c *stlCollector) AppendTriangle(t stl.Triangle) {
 				return
 			}
 		}
-		key := [3]float32(v)
+		key := stlKeyOf(v)
 		idx, ok := c.index[key]
 		if !ok {
 			if len(c.m.Vertices) >= math.MaxUint32 {
