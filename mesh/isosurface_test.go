@@ -1272,6 +1272,59 @@ func BenchmarkMarchBlocksSphereBand(b *testing.B) {
 	b.ReportMetric(float64(faces), "faces")
 }
 
+// BenchmarkMarchBlocksPartBand is sized like a large part in a
+// block-hashed TSDF: a sphere of radius 120 voxels (240 mm across at
+// 1 mm voxels), with colour, in the blocks that hold a voxel within the
+// truncation band of ±4 voxels (values NaN elsewhere, as unobserved).
+func BenchmarkMarchBlocksPartBand(b *testing.B) {
+	const r, band = 120.0, 4.0
+	c := r3.Vec{X: 0.31, Y: -0.17, Z: 0.23}
+	bv := &BlockVolume{Spacing: 0.001}
+	nb := int(math.Ceil((r+band)/BlockSize)) + 1
+	for bz := -nb; bz < nb; bz++ {
+		for by := -nb; by < nb; by++ {
+			for bx := -nb; bx < nb; bx++ {
+				blk := Block{Key: BlockKey{int32(bx), int32(by), int32(bz)},
+					Values: make([]float32, BlockValues), Colors: make([]RGB, BlockValues)}
+				keep := false
+				for i := range blk.Values {
+					p := r3.Vec{
+						X: float64(bx*BlockSize + i%BlockSize),
+						Y: float64(by*BlockSize + i/BlockSize%BlockSize),
+						Z: float64(bz*BlockSize + i/(BlockSize*BlockSize)),
+					}
+					d := r3.Norm(r3.Sub(p, c)) - r
+					if math.Abs(d) > band {
+						blk.Values[i] = float32(math.NaN())
+						continue
+					}
+					keep = true
+					blk.Values[i] = float32(d)
+					blk.Colors[i] = RGB{uint8(p.X), uint8(p.Y), uint8(p.Z)}
+				}
+				if keep {
+					bv.Blocks = append(bv.Blocks, blk)
+				}
+			}
+		}
+	}
+	cells := float64(len(bv.Blocks) * BlockValues)
+	b.ResetTimer()
+	var faces int
+	cpu0 := cpuTime()
+	for i := 0; i < b.N; i++ {
+		m, err := MarchBlocks(bv, 0, DefaultIsoOptions())
+		if err != nil {
+			b.Fatal(err)
+		}
+		faces = len(m.Faces)
+	}
+	b.ReportMetric(float64(cpuTime()-cpu0)/float64(b.N)/1e6, "cpu-ms/op")
+	b.ReportMetric(cells*float64(b.N)/b.Elapsed().Seconds(), "cells/s")
+	b.ReportMetric(float64(len(bv.Blocks)), "blocks")
+	b.ReportMetric(float64(faces), "faces")
+}
+
 func BenchmarkSampleGridSphere128(b *testing.B) {
 	for i := 0; i < b.N; i++ {
 		benchSphereGrid(b, 128)

@@ -60,10 +60,55 @@ type mcSource interface {
 
 // mcTileOut records where a tile's phase-1 output lives.
 type mcTileOut struct {
-	w      int32 // worker
-	v0, nv int32 // vertices in the worker's arena; the first ne are edge vertices
+	ch     *mcChunk
+	v0, nv int32 // vertices in the chunk; the first ne are edge vertices
 	ne     int32
-	r0, nr int32 // triangle-corner references in the worker's arena
+	r0, nr int32 // triangle-corner references in the chunk
+}
+
+// Chunk capacities. A tile makes at most ownedEdges edge vertices plus
+// one centre vertex per cell, and at most 12 triangles per cell; a tile
+// starts a new chunk when the current one might not hold its output, so
+// chunks never grow (and never copy).
+const (
+	maxTileVerts = ownedEdges + BlockValues
+	maxTileRefs  = BlockValues * 12 * 3
+	chunkVerts   = 16 * maxTileVerts
+	chunkRefs    = 8 * maxTileRefs
+)
+
+// mcChunk is a slab of phase-1 output.
+type mcChunk struct {
+	pos   []r3.Vec
+	nrm   []r3.Vec
+	col   []RGB
+	edges []uint16 // owned edge index per vertex; 0xffff for centre vertices
+	refs  []uint32
+}
+
+func newMCChunk() *mcChunk {
+	return &mcChunk{
+		pos:   make([]r3.Vec, 0, chunkVerts),
+		nrm:   make([]r3.Vec, 0, chunkVerts),
+		col:   make([]RGB, 0, chunkVerts),
+		edges: make([]uint16, 0, chunkVerts),
+		refs:  make([]uint32, 0, chunkRefs),
+	}
+}
+
+// chunk returns a chunk with room for one more tile's output.
+func (wk *mcWorker) chunk() *mcChunk {
+	if wk.used > 0 {
+		c := wk.chunks[wk.used-1]
+		if len(c.pos)+maxTileVerts <= cap(c.pos) && len(c.refs)+maxTileRefs <= cap(c.refs) {
+			return c
+		}
+	}
+	if wk.used == len(wk.chunks) {
+		wk.chunks = append(wk.chunks, newMCChunk())
+	}
+	wk.used++
+	return wk.chunks[wk.used-1]
 }
 
 // mcWorker is one goroutine's scratch space and output arena.
@@ -76,21 +121,22 @@ type mcWorker struct {
 	localID [ownedEdges]int32
 	cells   []uint32 // own mixed cells: flag index << 8 | case
 
-	pos   []r3.Vec
-	nrm   []r3.Vec
-	col   []RGB
-	edges []uint16 // owned edge index per vertex; 0xffff for centre vertices
-	refs  []uint32
+	chunks []*mcChunk // output slabs; the first used are in use
+	used   int
 }
 
 // mcWorkers keeps workers, with their scratch buffers and the capacity
 // of their arenas, between extractions.
 var mcWorkers = sync.Pool{New: func() any { return new(mcWorker) }}
 
-// reset empties the arenas, keeping their capacity.
+// reset empties the output chunks, keeping them for the next run.
 func (wk *mcWorker) reset() {
-	wk.pos, wk.nrm, wk.col = wk.pos[:0], wk.nrm[:0], wk.col[:0]
-	wk.edges, wk.refs, wk.cells = wk.edges[:0], wk.refs[:0], wk.cells[:0]
+	for _, c := range wk.chunks[:wk.used] {
+		c.pos, c.nrm, c.col = c.pos[:0], c.nrm[:0], c.col[:0]
+		c.edges, c.refs = c.edges[:0], c.refs[:0]
+	}
+	wk.used = 0
+	wk.cells = wk.cells[:0]
 }
 
 var (
@@ -154,7 +200,6 @@ func runMC(src mcSource, origin r3.Vec, h float64, iso float32, workers int) (*M
 				}
 				for t := t0; t < t0+chunk && t < n; t++ {
 					outs[t] = wk.tile(tab, src, t, origin, h, iso)
-					outs[t].w = int32(w)
 				}
 			}
 		}(w)
@@ -193,7 +238,7 @@ func runMC(src mcSource, origin r3.Vec, h float64, iso float32, workers int) (*M
 					return
 				}
 				for t := t0; t < t0+chunk && t < n; t++ {
-					if err := resolveTile(m, src, ws, outs, vbase, rbase, t); err != nil {
+					if err := resolveTile(m, src, outs, vbase, rbase, t); err != nil {
 						bad.Store(err)
 						return
 					}
@@ -210,19 +255,19 @@ func runMC(src mcSource, origin r3.Vec, h float64, iso float32, workers int) (*M
 
 // resolveTile copies tile t's vertices into m and turns its references
 // into vertex numbers.
-func resolveTile(m *Mesh, src mcSource, ws []*mcWorker, outs []mcTileOut, vbase, rbase []int64, t int) error {
+func resolveTile(m *Mesh, src mcSource, outs []mcTileOut, vbase, rbase []int64, t int) error {
 	o := outs[t]
 	if o.nv == 0 && o.nr == 0 {
 		return nil
 	}
-	wk := ws[o.w]
+	ch := o.ch
 	vb := vbase[t]
-	copy(m.Vertices[vb:], wk.pos[o.v0:o.v0+o.nv])
-	copy(m.Normals[vb:], wk.nrm[o.v0:o.v0+o.nv])
+	copy(m.Vertices[vb:], ch.pos[o.v0:o.v0+o.nv])
+	copy(m.Normals[vb:], ch.nrm[o.v0:o.v0+o.nv])
 	if m.Colors != nil {
-		copy(m.Colors[vb:], wk.col[o.v0:o.v0+o.nv])
+		copy(m.Colors[vb:], ch.col[o.v0:o.v0+o.nv])
 	}
-	refs := wk.refs[o.r0 : o.r0+o.nr]
+	refs := ch.refs[o.r0 : o.r0+o.nr]
 	faces := m.Faces[rbase[t]/3 : (rbase[t]+int64(o.nr))/3]
 	for i, r := range refs {
 		var id int64
@@ -236,7 +281,10 @@ func resolveTile(m *Mesh, src mcSource, ws []*mcWorker, outs []mcTileOut, vbase,
 				return fmt.Errorf("mesh: marching cubes: tile %v refers to a missing neighbour (bug)", src.tileKey(t))
 			}
 			no := outs[nb]
-			list := ws[no.w].edges[no.v0 : no.v0+no.ne]
+			if no.ch == nil {
+				return fmt.Errorf("mesh: marching cubes: tile %v refers to an empty neighbour (bug)", src.tileKey(t))
+			}
+			list := no.ch.edges[no.v0 : no.v0+no.ne]
 			k, ok := slices.BinarySearch(list, e)
 			if !ok {
 				return fmt.Errorf("mesh: marching cubes: tile %v refers to an edge its neighbour did not make (bug)", src.tileKey(t))
@@ -250,7 +298,7 @@ func resolveTile(m *Mesh, src mcSource, ws []*mcWorker, outs []mcTileOut, vbase,
 
 // tile runs phase 1 on tile t.
 func (wk *mcWorker) tile(tab *mcTable, src mcSource, t int, origin r3.Vec, h float64, iso float32) mcTileOut {
-	out := mcTileOut{v0: int32(len(wk.pos)), r0: int32(len(wk.refs))}
+	var out mcTileOut
 	hasCol := src.hasColors()
 	var cols []RGB
 	if hasCol {
@@ -334,6 +382,8 @@ func (wk *mcWorker) tile(tab *mcTable, src mcSource, t int, origin r3.Vec, h flo
 	}
 
 	// Owned vertices, in edge order.
+	ch := wk.chunk()
+	out = mcTileOut{ch: ch, v0: int32(len(ch.pos)), r0: int32(len(ch.refs))}
 	key := src.tileKey(t)
 	gx0, gy0, gz0 := key[0]*BlockSize, key[1]*BlockSize, key[2]*BlockSize
 	ctx := vertexCtx{wk: wk, origin: origin, h: h, iso: float64(iso), hasCol: hasCol, gx0: gx0, gy0: gy0, gz0: gz0}
@@ -347,12 +397,12 @@ func (wk *mcWorker) tile(tab *mcTable, src mcSource, t int, origin r3.Vec, h flo
 		p := i / 3
 		x, y, z := p%BlockSize, p/BlockSize%BlockSize, p/(BlockSize*BlockSize)
 		pos, nrm, col := ctx.edgeVertex(x, y, z, a)
-		wk.pos = append(wk.pos, pos)
-		wk.nrm = append(wk.nrm, nrm)
+		ch.pos = append(ch.pos, pos)
+		ch.nrm = append(ch.nrm, nrm)
 		if hasCol {
-			wk.col = append(wk.col, col)
+			ch.col = append(ch.col, col)
 		}
-		wk.edges = append(wk.edges, uint16(i))
+		ch.edges = append(ch.edges, uint16(i))
 		wk.localID[i] = nloc
 		nloc++
 	}
@@ -400,21 +450,21 @@ func (wk *mcWorker) tile(tab *mcTable, src mcSource, t int, origin r3.Vec, h flo
 				continue
 			}
 			pos, nrm, col := ctx.centreVertex(cx, cy, cz, m, tab)
-			wk.pos = append(wk.pos, pos)
-			wk.nrm = append(wk.nrm, nrm)
+			ch.pos = append(ch.pos, pos)
+			ch.nrm = append(ch.nrm, nrm)
 			if hasCol {
-				wk.col = append(wk.col, col)
+				ch.col = append(ch.col, col)
 			}
-			wk.edges = append(wk.edges, 0xffff)
+			ch.edges = append(ch.edges, 0xffff)
 			refs[mcCentre+k] = uint32(nloc)
 			nloc++
 		}
 		for _, e := range tab.tris[tab.off[ti]:tab.off[ti+1]] {
-			wk.refs = append(wk.refs, refs[e])
+			ch.refs = append(ch.refs, refs[e])
 		}
 	}
 	out.nv = nloc
-	out.nr = int32(len(wk.refs)) - out.r0
+	out.nr = int32(len(ch.refs)) - out.r0
 	return out
 }
 
@@ -743,32 +793,55 @@ func padRange(d int) (lo, hi, src int) {
 func (s *blockSource) gather(t int, vals []float32, cols []RGB) {
 	k := s.blocks[t].Key
 	nan := float32(math.NaN())
+	block := func(dx, dy, dz int) *Block {
+		if dx|dy|dz == 0 {
+			return &s.blocks[t]
+		}
+		if j := s.find(k, dx, dy, dz); j >= 0 {
+			return &s.blocks[j]
+		}
+		return nil
+	}
 	for dz := -1; dz <= 1; dz++ {
 		z0, z1, sz := padRange(dz)
 		for dy := -1; dy <= 1; dy++ {
 			y0, y1, sy := padRange(dy)
-			for dx := -1; dx <= 1; dx++ {
-				x0, x1, sx := padRange(dx)
-				var b *Block
-				if dx|dy|dz == 0 {
-					b = &s.blocks[t]
-				} else if j := s.find(k, dx, dy, dz); j >= 0 {
-					b = &s.blocks[j]
-				}
-				for z := z0; z < z1; z++ {
-					for y := y0; y < y1; y++ {
-						row := vals[padN*y+padN2*z+x0 : padN*y+padN2*z+x1]
-						if b == nil {
-							for x := range row {
-								row[x] = nan
-							}
-							continue
+			bm, b0, bp := block(-1, dy, dz), block(0, dy, dz), block(1, dy, dz)
+			for z := z0; z < z1; z++ {
+				for y := y0; y < y1; y++ {
+					row := vals[padN*y+padN2*z : padN*y+padN2*z+padN]
+					src := BlockSize * ((sy + y - y0) + BlockSize*(sz+z-z0))
+					// x = −1 from the block below, 0…7 from this one,
+					// 8, 9 from the block above.
+					if bm != nil {
+						row[0] = bm.Values[src+BlockSize-1]
+					} else {
+						row[0] = nan
+					}
+					if b0 != nil {
+						copy(row[1:BlockSize+1], b0.Values[src:src+BlockSize])
+					} else {
+						for x := 1; x <= BlockSize; x++ {
+							row[x] = nan
 						}
-						src := sx + BlockSize*((sy+y-y0)+BlockSize*(sz+z-z0))
-						copy(row, b.Values[src:src+len(row)])
-						if cols != nil {
-							copy(cols[padN*y+padN2*z+x0:padN*y+padN2*z+x1], b.Colors[src:src+len(row)])
-						}
+					}
+					if bp != nil {
+						row[BlockSize+1], row[BlockSize+2] = bp.Values[src], bp.Values[src+1]
+					} else {
+						row[BlockSize+1], row[BlockSize+2] = nan, nan
+					}
+					if cols == nil {
+						continue
+					}
+					crow := cols[padN*y+padN2*z : padN*y+padN2*z+padN]
+					if bm != nil {
+						crow[0] = bm.Colors[src+BlockSize-1]
+					}
+					if b0 != nil {
+						copy(crow[1:BlockSize+1], b0.Colors[src:src+BlockSize])
+					}
+					if bp != nil {
+						crow[BlockSize+1], crow[BlockSize+2] = bp.Colors[src], bp.Colors[src+1]
 					}
 				}
 			}
