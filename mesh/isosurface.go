@@ -5,7 +5,8 @@ package mesh
 // algorithm", SIGGRAPH, doi:10.1145/37402.37422), with ambiguous faces
 // resolved by the asymptotic decider (Nielson & Hamann 1991, "The
 // asymptotic decider: resolving the ambiguity in marching cubes", IEEE
-// Visualization, doi:10.1109/VISUAL.1991.175782). The case table is
+// Visualization '91; doi:10.1109/VISUAL.1991.175782, recalled from
+// memory). The case table is
 // built by this package from the cell's geometry (mc_table.go); the
 // extraction engine is in mc_engine.go.
 //
@@ -124,12 +125,15 @@ type Block struct {
 // (i, j, k) lies at Origin + Spacing·(i, j, k). Lattice points in no
 // block are unknown.
 //
-// A TSDF kept as a hash map of 8³ voxel blocks (Nießner et al. 2013,
-// voxel hashing, doi:10.1145/2508363.2508374) is extracted by listing
-// its blocks here, each pointing at its distance array (NaN where the
-// weight is zero, so unobserved voxels open the surface instead of
-// inventing one) and colour array, with iso = 0. No values are copied;
-// the block order does not matter.
+// A TSDF kept as a hash map of 8³ voxel blocks (Nießner, Zollhöfer,
+// Izadi & Stamminger 2013, voxel hashing, ACM TOG 32(6),
+// doi:10.1145/2508363.2508374) is extracted by listing its blocks here,
+// in any order, with iso = 0: Values holds each voxel's signed distance
+// in the block's x-fastest order, NaN where the voxel's weight is zero
+// (so that unobserved voxels open the surface instead of inventing
+// one), and Colors its colour. MarchBlocks reads these slices, never
+// keeps or changes them, and copies no values beyond a 11³ scratch
+// window per worker.
 type BlockVolume struct {
 	Origin  r3.Vec
 	Spacing float64

@@ -10,7 +10,8 @@ package mesh
 // "Marching cubes: a high resolution 3D surface construction
 // algorithm", SIGGRAPH, doi:10.1145/37402.37422, and Nielson & Hamann
 // 1991, "The asymptotic decider: resolving the ambiguity in marching
-// cubes", IEEE Visualization, doi:10.1109/VISUAL.1991.175782):
+// cubes", IEEE Visualization '91; doi:10.1109/VISUAL.1991.175782,
+// recalled from memory):
 //
 //  1. On each of the six faces, the crossed edges are paired into
 //     segments. A face with two crossed edges has one segment. A face
