@@ -94,7 +94,7 @@ func buildScene(part *mesh.Mesh, opt SynthOptions) (*scene, error) {
 		sc.addClutter(rng, tableZ, false)
 		sc.planTurntable(opt)
 	case RigHandheld:
-		sc.objects = append(sc.objects, sceneObject{name: "table", mesh: planeMesh(-0.9, 0.9, -0.9, 0.9, 0, 0.015, woodTexture(opt.Seed)), modelToS: mesh.Identity()})
+		sc.objects = append(sc.objects, sceneObject{name: "table", mesh: planeMesh(-0.9, 0.9, -0.9, 0.9, 0, 0.012, woodTexture(opt.Seed)), modelToS: mesh.Identity()})
 		sc.addClutter(rng, 0, true)
 		if err := sc.planHandheld(opt, size.Z, rng); err != nil {
 			return nil, err
@@ -111,8 +111,23 @@ func buildScene(part *mesh.Mesh, opt SynthOptions) (*scene, error) {
 // (camera circling) they stand beyond the camera's orbit.
 func (sc *scene) addClutter(rng *rand.Rand, tableZ float64, around bool) {
 	wallY := 1.0
-	sc.objects = append(sc.objects, sceneObject{name: "wall", modelToS: mesh.Identity(),
-		mesh: wallMesh(-1.4, 1.4, tableZ-0.2, tableZ+1.5, wallY, 0.04, wallTexture(rng.Uint64()))})
+	wallTex := wallTexture(rng.Uint64())
+	if around {
+		// A room around the table: four walls 1.6 m from the part and a
+		// floor 0.75 m below the table top.
+		const half, floor, top = 1.6, -0.75, 1.5
+		sc.objects = append(sc.objects, sceneObject{name: "room", modelToS: mesh.Identity(), mesh: merge(
+			quadMesh(r3.Vec{X: -half, Y: -half, Z: floor}, r3.Vec{X: 2 * half}, r3.Vec{Y: 2 * half}, 0.1, greyTexture(rng.Uint64())),
+			quadMesh(r3.Vec{X: -half, Y: half, Z: floor}, r3.Vec{X: 2 * half}, r3.Vec{Z: top - floor}, 0.05, wallTex),
+			quadMesh(r3.Vec{X: half, Y: -half, Z: floor}, r3.Vec{X: -2 * half}, r3.Vec{Z: top - floor}, 0.05, wallTex),
+			quadMesh(r3.Vec{X: half, Y: half, Z: floor}, r3.Vec{Y: -2 * half}, r3.Vec{Z: top - floor}, 0.05, wallTex),
+			quadMesh(r3.Vec{X: -half, Y: -half, Z: floor}, r3.Vec{Y: 2 * half}, r3.Vec{Z: top - floor}, 0.05, wallTex),
+		)})
+	} else {
+		// A backdrop behind the turntable, facing the camera (−y).
+		sc.objects = append(sc.objects, sceneObject{name: "wall", modelToS: mesh.Identity(),
+			mesh: quadMesh(r3.Vec{X: -1.4, Y: wallY, Z: tableZ - 0.2}, r3.Vec{X: 2.8}, r3.Vec{Z: 1.7}, 0.04, wallTex)})
+	}
 	n := 5
 	for i := 0; i < n; i++ {
 		var c r3.Vec
@@ -236,40 +251,27 @@ func integrate(f func(float64) float64, t float64) float64 {
 
 // ---- meshes ----------------------------------------------------------
 
-// planeMesh is a horizontal grid at height z over [x0, x1]×[y0, y1]
-// with cells of about cell metres, facing +z, coloured by col.
-func planeMesh(x0, x1, y0, y1, z, cell float64, col func(r3.Vec) mesh.RGB) *mesh.Mesh {
-	nx := int(math.Ceil((x1 - x0) / cell))
-	ny := int(math.Ceil((y1 - y0) / cell))
+// quadMesh is a flat rectangle o + s·u + t·v (s, t in [0, 1]) as a
+// grid of cells of about cell metres, facing u × v, coloured by col at
+// the vertices.
+func quadMesh(o, u, v r3.Vec, cell float64, col func(r3.Vec) mesh.RGB) *mesh.Mesh {
+	nu := max(1, int(math.Ceil(r3.Norm(u)/cell)))
+	nv := max(1, int(math.Ceil(r3.Norm(v)/cell)))
 	m := &mesh.Mesh{}
-	for j := 0; j <= ny; j++ {
-		for i := 0; i <= nx; i++ {
-			p := r3.Vec{X: x0 + (x1-x0)*float64(i)/float64(nx), Y: y0 + (y1-y0)*float64(j)/float64(ny), Z: z}
+	for j := 0; j <= nv; j++ {
+		for i := 0; i <= nu; i++ {
+			p := r3.Add(o, r3.Add(r3.Scale(float64(i)/float64(nu), u), r3.Scale(float64(j)/float64(nv), v)))
 			m.Vertices = append(m.Vertices, p)
 			m.Colors = append(m.Colors, col(p))
 		}
 	}
-	gridFaces(m, 0, nx, ny, false)
+	gridFaces(m, 0, nu, nv, false)
 	return m
 }
 
-// wallMesh is a vertical grid in the plane y = y over [x0, x1]×[z0, z1],
-// facing −y (towards the scene).
-func wallMesh(x0, x1, z0, z1, y, cell float64, col func(r3.Vec) mesh.RGB) *mesh.Mesh {
-	nx := int(math.Ceil((x1 - x0) / cell))
-	nz := int(math.Ceil((z1 - z0) / cell))
-	m := &mesh.Mesh{}
-	for j := 0; j <= nz; j++ {
-		for i := 0; i <= nx; i++ {
-			p := r3.Vec{X: x0 + (x1-x0)*float64(i)/float64(nx), Y: y, Z: z0 + (z1-z0)*float64(j)/float64(nz)}
-			m.Vertices = append(m.Vertices, p)
-			m.Colors = append(m.Colors, col(p))
-		}
-	}
-	// Rows run along x, columns up z: x × z = −y, so the grid's
-	// counter-clockwise winding faces −y.
-	gridFaces(m, 0, nx, nz, false)
-	return m
+// planeMesh is a horizontal rectangle at height z, facing +z.
+func planeMesh(x0, x1, y0, y1, z, cell float64, col func(r3.Vec) mesh.RGB) *mesh.Mesh {
+	return quadMesh(r3.Vec{X: x0, Y: y0, Z: z}, r3.Vec{X: x1 - x0}, r3.Vec{Y: y1 - y0}, cell, col)
 }
 
 // gridFaces triangulates a (nx+1)×(ny+1) vertex grid starting at base,
@@ -380,33 +382,32 @@ func cylinderMesh(r, z0, z1 float64, segs int, col func(r3.Vec) mesh.RGB) *mesh.
 // subdivided into cells of about cell metres (so vertex colours can
 // carry texture).
 func boxMesh(lo, hi r3.Vec, cell float64, col func(r3.Vec) mesh.RGB) *mesh.Mesh {
-	m := &mesh.Mesh{}
-	// Each face: an origin corner and two edge vectors whose cross
-	// product points outwards.
 	d := r3.Sub(hi, lo)
-	type face struct{ o, u, v r3.Vec }
-	faces := []face{
-		{lo, r3.Vec{Y: d.Y}, r3.Vec{X: d.X}},                                   // bottom, −z
-		{r3.Vec{X: lo.X, Y: lo.Y, Z: hi.Z}, r3.Vec{X: d.X}, r3.Vec{Y: d.Y}},    // top, +z
-		{lo, r3.Vec{X: d.X}, r3.Vec{Z: d.Z}},                                   // −y
-		{r3.Vec{X: lo.X, Y: hi.Y, Z: lo.Z}, r3.Vec{Z: d.Z}, r3.Vec{X: d.X}},    // +y
-		{lo, r3.Vec{Z: d.Z}, r3.Vec{Y: d.Y}},                                   // −x
-		{r3.Vec{X: hi.X, Y: lo.Y, Z: lo.Z}, r3.Vec{Y: d.Y}, r3.Vec{Z: d.Z}},    // +x
-	}
-	for _, f := range faces {
-		nu := max(1, int(math.Ceil(r3.Norm(f.u)/cell)))
-		nv := max(1, int(math.Ceil(r3.Norm(f.v)/cell)))
-		base := len(m.Vertices)
-		for j := 0; j <= nv; j++ {
-			for i := 0; i <= nu; i++ {
-				p := r3.Add(f.o, r3.Add(r3.Scale(float64(i)/float64(nu), f.u), r3.Scale(float64(j)/float64(nv), f.v)))
-				m.Vertices = append(m.Vertices, p)
-				m.Colors = append(m.Colors, col(p))
-			}
+	x, y, z := r3.Vec{X: d.X}, r3.Vec{Y: d.Y}, r3.Vec{Z: d.Z}
+	// Each face: an origin corner and two edges whose cross product
+	// points outwards.
+	return merge(
+		quadMesh(lo, y, x, cell, col),            // bottom, −z
+		quadMesh(r3.Add(lo, z), x, y, cell, col), // top, +z
+		quadMesh(lo, x, z, cell, col),            // −y
+		quadMesh(r3.Add(lo, y), z, x, cell, col), // +y
+		quadMesh(lo, z, y, cell, col),            // −x
+		quadMesh(r3.Add(lo, x), y, z, cell, col), // +x
+	)
+}
+
+// merge concatenates meshes that all carry colours.
+func merge(ms ...*mesh.Mesh) *mesh.Mesh {
+	out := &mesh.Mesh{}
+	for _, m := range ms {
+		base := uint32(len(out.Vertices))
+		out.Vertices = append(out.Vertices, m.Vertices...)
+		out.Colors = append(out.Colors, m.Colors...)
+		for _, f := range m.Faces {
+			out.Faces = append(out.Faces, mesh.Face{f[0] + base, f[1] + base, f[2] + base})
 		}
-		gridFaces(m, base, nu, nv, false)
 	}
-	return m
+	return out
 }
 
 // ---- textures --------------------------------------------------------
@@ -424,8 +425,9 @@ func woodTexture(seed uint64) func(r3.Vec) mesh.RGB {
 	return func(p r3.Vec) mesh.RGB {
 		plank := math.Floor(p.Y / 0.12)
 		tone := 0.9 + 0.2*hashUnit(int64(plank), 7, seed)
-		g := p.Y*90 + 4*valueNoise(p.X*0.5, p.Y*4, 0.05, seed) + plank*1.7
-		k := tone * (0.86 + 0.14*math.Sin(2*math.Pi*g))
+		// Grain: stripes along x about 4 cm apart, wandering slowly.
+		g := p.Y*25 + 1.2*valueNoise(p.X, p.Y*3, 0.2, seed) + plank*0.37
+		k := tone * (0.88 + 0.12*math.Sin(2*math.Pi*g))
 		if math.Abs(p.Y-0.12*math.Round(p.Y/0.12)) < 0.002 {
 			k *= 0.6 // the seam between planks
 		}
@@ -444,14 +446,15 @@ func greyTexture(seed uint64) func(r3.Vec) mesh.RGB {
 // wallTexture: off-white with a slow shading gradient and a poster.
 func wallTexture(seed uint64) func(r3.Vec) mesh.RGB {
 	return func(p r3.Vec) mesh.RGB {
-		if p.X > 0.2 && p.X < 0.7 && p.Z > 0.25 && p.Z < 0.9 {
+		if p.X > -0.5 && p.X < 0.1 && p.Z > 0.08 && p.Z < 0.5 {
 			// A poster of coloured bands.
-			band := int(math.Floor((p.Z - 0.25) / 0.13))
+			band := int(math.Floor((p.Z - 0.08) / 0.07))
 			c := boxColors[(band+int(seed%6))%len(boxColors)]
 			return c
 		}
-		v := 212 + 10*valueNoise(p.X, p.Z, 0.3, seed)
-		return mesh.RGB{R: clamp8(v), G: clamp8(v - 2), B: clamp8(v - 8)}
+		// A pale blue-grey backdrop, unlike the table.
+		v := 10 * valueNoise(p.X, p.Z, 0.3, seed)
+		return mesh.RGB{R: clamp8(170 + v), G: clamp8(188 + v), B: clamp8(205 + v)}
 	}
 }
 
