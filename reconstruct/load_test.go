@@ -20,6 +20,7 @@ import (
 	"gonum.org/v1/gonum/spatial/r3"
 
 	"github.com/scanfold/scanfold/mesh"
+	"github.com/scanfold/scanfold/mesh/render"
 )
 
 // testSweep describes a small sweep written by writeTestSweep.
@@ -73,10 +74,10 @@ func (ts *testSweep) write(t testing.TB, dir string) {
 	t.Helper()
 	for i, e := range ts.m.Frames {
 		var db, cb bytes.Buffer
-		if err := EncodeDepthPNG(&db, ts.depths[i], ts.m.Intrinsics.Width, ts.m.Intrinsics.Height, ts.m.DepthUnit); err != nil {
+		if _, err := render.WriteDepthPNG(&db, ts.depths[i], ts.m.Intrinsics.Width, ts.m.Intrinsics.Height, ts.m.DepthUnit); err != nil {
 			t.Fatal(err)
 		}
-		if err := EncodeColorPNG(&cb, ts.colors[i]); err != nil {
+		if err := render.WriteColorPNG(&cb, ts.colors[i]); err != nil {
 			t.Fatal(err)
 		}
 		writeFile(t, dir, e.Depth, db.Bytes())
@@ -535,28 +536,5 @@ func TestColorKinds(t *testing.T) {
 	f1, _ := s.Frame(1)
 	if got := f1.Color.NRGBAAt(2, 0); got != (color.NRGBA{9, 8, 7, 255}) {
 		t.Errorf("paletted pixel = %v", got)
-	}
-}
-
-func TestEncodeDepthPNGRange(t *testing.T) {
-	// Out-of-range and invalid depths become 0 (no measurement).
-	d := []float32{0.5, -1, float32(math.NaN()), 70, 0.0004, 0.0006}
-	var b bytes.Buffer
-	if err := EncodeDepthPNG(&b, d, 6, 1, 0.001); err != nil {
-		t.Fatal(err)
-	}
-	img, err := png.Decode(&b)
-	if err != nil {
-		t.Fatal(err)
-	}
-	g := img.(*image.Gray16)
-	want := []uint16{500, 0, 0, 0, 0, 1}
-	for i, w := range want {
-		if got := g.Gray16At(i, 0).Y; got != w {
-			t.Errorf("pixel %d (%v m) = %d counts, want %d", i, d[i], got, w)
-		}
-	}
-	if err := EncodeDepthPNG(&b, d, 5, 1, 0.001); err == nil {
-		t.Error("size mismatch accepted")
 	}
 }

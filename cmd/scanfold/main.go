@@ -59,8 +59,9 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 		Writer:          stdout,
 		ErrWriter:       stderr,
 		HideHelpCommand: true,
-		// Errors are printed once, by run.
+		// Errors are printed once, by run, without the help text.
 		ExitErrHandler: func(*cli.Context, error) {},
+		OnUsageError:   usageError,
 		Commands: []*cli.Command{
 			versionCommand(),
 			synthCommand(),
@@ -69,14 +70,21 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 	}
 }
 
+// usageError returns a flag error as it is, so that run prints one line
+// rather than the whole help.
+func usageError(_ *cli.Context, err error, _ bool) error {
+	return fmt.Errorf("%w (see --help)", err)
+}
+
 func versionString() string {
 	return fmt.Sprintf("%s (%s %s/%s)", Version, runtime.Version(), runtime.GOOS, runtime.GOARCH)
 }
 
 func versionCommand() *cli.Command {
 	return &cli.Command{
-		Name:  "version",
-		Usage: "print scanfold's version and the Go version it was built with",
+		Name:         "version",
+		OnUsageError: usageError,
+		Usage:        "print scanfold's version and the Go version it was built with",
 		Action: func(c *cli.Context) error {
 			if c.Args().Len() > 0 {
 				return fmt.Errorf("version takes no arguments, got %q", c.Args().First())

@@ -27,7 +27,7 @@ func synthFlags() []cli.Flag {
 		&cli.IntFlag{Name: "frames", Value: d.Frames, Usage: "number of frames (a turntable turns 360°/frames between frames)"},
 		&cli.Uint64Flag{Name: "seed", Value: d.Seed, Usage: "random seed; the same seed writes the same sweep"},
 		&cli.GenericFlag{Name: "distance", Value: &units.Length{Metres: d.Distance}, Usage: "camera distance to the plate centre (turntable) or mean distance to the part (handheld), e.g. 0.5m or 450mm"},
-		&cli.Float64Flag{Name: "elevation", Value: d.Elevation * 180 / math.Pi, Usage: "how far the camera looks down on the support, in degrees"},
+		&cli.Float64Flag{Name: "elevation", Value: math.Round(d.Elevation*180/math.Pi*1e6) / 1e6, Usage: "how far the camera looks down on the support, in degrees"},
 		&cli.BoolFlag{Name: "noise", Value: true, Usage: "simulate depth-sensor noise, dropouts and light changes (--noise=false for clean frames)"},
 		&cli.IntFlag{Name: "width", Value: d.Intrinsics.Width, Usage: "image width in pixels (focal length scales with it: 525 px at 640)"},
 		&cli.IntFlag{Name: "height", Value: d.Intrinsics.Height, Usage: "image height in pixels"},
@@ -46,9 +46,11 @@ func synthCommand() *cli.Command {
 		&cli.BoolFlag{Name: "force", Usage: "replace a sweep already at --out"},
 	}, synthFlags()...)
 	return &cli.Command{
-		Name:      "synth",
-		Usage:     "write a synthetic RGB-D sweep of a part, with its ground truth",
-		UsageText: "scanfold synth --part NAME | --mesh FILE --out DIR [--rig turntable|handheld] [--frames N] [--seed S] ...",
+		Name:            "synth",
+		OnUsageError:    usageError,
+		HideHelpCommand: true,
+		Usage:           "write a synthetic RGB-D sweep of a part, with its ground truth",
+		UsageText:       "scanfold synth --part NAME | --mesh FILE --out DIR [--rig turntable|handheld] [--frames N] [--seed S] ...",
 		Description: "Renders a part on a turntable plate or on a table, with background clutter, through a " +
 			"simulated structured-light camera, and writes a sweep folder (sweep.json, colour and 16-bit depth " +
 			"PNGs) plus truth/ (part.ply, seen.ply, poses.json) in the sweep's world frame. The folder appears " +
@@ -75,8 +77,10 @@ func synthCommand() *cli.Command {
 
 func demoCommand() *cli.Command {
 	return &cli.Command{
-		Name:  "demo",
-		Usage: "synthesise a demo sweep of the bracket and summarise what was written",
+		Name:            "demo",
+		OnUsageError:    usageError,
+		HideHelpCommand: true,
+		Usage:           "synthesise a demo sweep of the bracket and summarise what was written",
 		Description: "Writes a 36-frame turntable sweep of the demo part 'bracket' into a new temporary folder " +
 			"(or --out) and prints what was written. Later versions run the whole pipeline on it.",
 		Flags: append([]cli.Flag{
@@ -169,7 +173,7 @@ func printSynthReport(w io.Writer, rep *reconstruct.SynthReport, name string, op
 	fmt.Fprintf(w, "wrote %s\n", rep.Dir)
 	fmt.Fprintf(w, "  frames        %d × %d×%d, %s rig, seed %d\n", rep.Frames, k.Width, k.Height, opt.Rig, opt.Seed)
 	fmt.Fprintf(w, "  valid depth   %.1f %% of pixels (the part: %.1f %%)\n", 100*rep.ValidFraction, 100*rep.PartFraction)
-	fmt.Fprintf(w, "  depth range   %s – %s\n", units.FormatLength(rep.DepthMin), units.FormatLength(rep.DepthMax))
+	fmt.Fprintf(w, "  depth range   %.0f – %.0f mm\n", rep.DepthMin*1e3, rep.DepthMax*1e3)
 	s := rep.PartSize
 	fmt.Fprintf(w, "  part          %s, %.1f × %.1f × %.1f mm, %d triangles (%d seen)\n", name, s.X*1e3, s.Y*1e3, s.Z*1e3, rep.PartTriangles, rep.SeenTriangles)
 	fmt.Fprintf(w, "  truth         %s\n", filepath.Join(rep.Dir, reconstruct.TruthDir))
