@@ -538,3 +538,22 @@ func TestColorKinds(t *testing.T) {
 		t.Errorf("paletted pixel = %v", got)
 	}
 }
+
+// BenchmarkSweepFrame reads one 640×480 frame (a 16-bit depth PNG and
+// an RGB PNG of random content, the worst case for compression).
+func BenchmarkSweepFrame(b *testing.B) {
+	ts := newTestSweep(RigTurntable, 1, 640, 480, 1)
+	dir := b.TempDir()
+	ts.write(b, dir)
+	s, err := LoadSweep(dir)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.ReportAllocs()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := s.Frame(0); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
