@@ -25,6 +25,7 @@ package mesh
 import (
 	"fmt"
 	"math"
+	"math/bits"
 	"slices"
 	"sync"
 	"sync/atomic"
@@ -115,9 +116,9 @@ func (wk *mcWorker) chunk() *mcChunk {
 type mcWorker struct {
 	vals    [padN3]float32
 	cols    [padN3]RGB
-	rowIn   [flagN * flagN]uint16 // per x row of points −1…8: inside bits
-	rowUnk  [flagN * flagN]uint16 // and unknown bits
-	needed  [ownedEdges]bool
+	rowIn   [flagN * flagN]uint16   // per x row of points −1…8: inside bits
+	rowUnk  [flagN * flagN]uint16   // and unknown bits
+	needed  [ownedEdges / 64]uint64 // bit set of owned edges that get a vertex
 	localID [ownedEdges]int32
 	cells   []uint32 // own mixed cells: flag index << 8 | case
 
@@ -357,7 +358,8 @@ func (wk *mcWorker) tile(tab *mcTable, src mcSource, t int, origin r3.Vec, h flo
 					base := ownedIndex(cx, cy, cz, 0)
 					for e := 0; e < 12; e++ {
 						if mask>>e&1 != 0 {
-							wk.needed[base+ownedDelta[e]] = true
+							i := base + ownedDelta[e]
+							wk.needed[i>>6] |= 1 << (i & 63)
 						}
 					}
 				} else {
@@ -370,7 +372,8 @@ func (wk *mcWorker) tile(tab *mcTable, src mcSource, t int, origin r3.Vec, h flo
 						if x < 0 || y < 0 || z < 0 || x >= BlockSize || y >= BlockSize || z >= BlockSize {
 							continue
 						}
-						wk.needed[ownedIndex(x, y, z, int(ed.axis))] = true
+						i := ownedIndex(x, y, z, int(ed.axis))
+						wk.needed[i>>6] |= 1 << (i & 63)
 					}
 				}
 				if cx >= 0 && cy >= 0 && cz >= 0 {
@@ -388,23 +391,23 @@ func (wk *mcWorker) tile(tab *mcTable, src mcSource, t int, origin r3.Vec, h flo
 	gx0, gy0, gz0 := key[0]*BlockSize, key[1]*BlockSize, key[2]*BlockSize
 	ctx := vertexCtx{wk: wk, origin: origin, h: h, iso: float64(iso), hasCol: hasCol, gx0: gx0, gy0: gy0, gz0: gz0}
 	var nloc int32
-	for i := 0; i < ownedEdges; i++ {
-		if !wk.needed[i] {
-			continue
+	for w, word := range wk.needed {
+		wk.needed[w] = 0
+		for ; word != 0; word &= word - 1 {
+			i := w<<6 | bits.TrailingZeros64(word)
+			a := i % 3
+			p := i / 3
+			x, y, z := p%BlockSize, p/BlockSize%BlockSize, p/(BlockSize*BlockSize)
+			pos, nrm, col := ctx.edgeVertex(x, y, z, a)
+			ch.pos = append(ch.pos, pos)
+			ch.nrm = append(ch.nrm, nrm)
+			if hasCol {
+				ch.col = append(ch.col, col)
+			}
+			ch.edges = append(ch.edges, uint16(i))
+			wk.localID[i] = nloc
+			nloc++
 		}
-		wk.needed[i] = false
-		a := i % 3
-		p := i / 3
-		x, y, z := p%BlockSize, p/BlockSize%BlockSize, p/(BlockSize*BlockSize)
-		pos, nrm, col := ctx.edgeVertex(x, y, z, a)
-		ch.pos = append(ch.pos, pos)
-		ch.nrm = append(ch.nrm, nrm)
-		if hasCol {
-			ch.col = append(ch.col, col)
-		}
-		ch.edges = append(ch.edges, uint16(i))
-		wk.localID[i] = nloc
-		nloc++
 	}
 	out.ne = nloc
 
