@@ -61,6 +61,14 @@
 // part's builder. Tests check them against seeded Monte Carlo estimates
 // of the SDF's inside and against extracted meshes.
 //
+// # Meshes
+//
+// Part.Mesh samples the SDF on a lattice and extracts a closed,
+// outward-oriented triangle mesh by marching cubes, with each vertex
+// coloured by Color at the vertex. At 1 mm spacing the meshes have
+// 5 000 to 42 000 triangles, and their volumes fall short of the closed
+// forms by 0.08 % to 1.1 % (the lattice cuts across creases).
+//
 // # Colours
 //
 // Colours are 8-bit sRGB from pure functions of position: fine
@@ -72,7 +80,8 @@
 // # Degenerate input
 //
 // Get with an unknown name returns an error listing the known names.
-// SDF and Color
+// Part.Mesh rejects a spacing that is not positive and finite, or one
+// so fine that the lattice would exceed mesh.MaxGridPoints. SDF and Color
 // accept any finite point; a point with a NaN coordinate gives NaN
 // distance and an unspecified colour.
 package parts
