@@ -189,6 +189,9 @@ func (s *Store) install(st *staged) error {
 // checkBlobFile re-hashes the file at path against ref: nil when it is
 // intact, an error wrapping ErrMissing or ErrDamaged otherwise.
 func checkBlobFile(path string, ref BlobRef) error {
+	if fi, err := os.Stat(path); err == nil && fi.Size() != ref.Size {
+		return fmt.Errorf("%w: blob %s: file %s has %d bytes, want %d", ErrDamaged, ref.SHA256, path, fi.Size(), ref.Size)
+	}
 	sum, size, err := hashFile(context.Background(), path)
 	if errors.Is(err, fs.ErrNotExist) {
 		return fmt.Errorf("%w: blob %s: file %s is absent", ErrMissing, ref.SHA256, path)

@@ -22,6 +22,7 @@
 //	DIR/blobs/ab/cdef…      one file per distinct content, named by its SHA-256:
 //	                        the first two hex digits name the sub-folder, the other 62 the file
 //	DIR/tmp/PID.RANDOM.tmp  blobs being written by the filing process PID
+//	DIR/.FORMAT.PID.RANDOM.tmp  only while process PID creates the catalog
 //
 // Blob files are written once and never modified; they are created
 // read-only (mode 0444). Identical content filed twice, by any part, is

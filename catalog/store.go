@@ -259,11 +259,7 @@ func (s *Store) write(ctx context.Context, what string, fn func(*sql.Tx) error) 
 			return nil
 		}
 		if !isBusy(err) || attempt >= s.opts.Retries {
-			var se *sqlite.Error
-			if errors.As(err, &se) {
-				return s.dbErr(what, err)
-			}
-			return err
+			return s.wrapTxErr(what, err)
 		}
 		backoff := time.Duration(10+rand.IntN(40<<attempt)) * time.Millisecond
 		t := time.NewTimer(backoff)
@@ -293,15 +289,24 @@ func (s *Store) writeOnce(ctx context.Context, fn func(*sql.Tx) error) error {
 func (s *Store) read(ctx context.Context, what string, fn func(*sql.Tx) error) error {
 	tx, err := s.db.BeginTx(ctx, &sql.TxOptions{ReadOnly: true})
 	if err != nil {
-		return s.dbErr(what, err)
+		return s.wrapTxErr(what, err)
 	}
 	defer tx.Rollback()
 	if err := fn(tx); err != nil {
-		var se *sqlite.Error
-		if errors.As(err, &se) {
-			return s.dbErr(what, err)
-		}
-		return err
+		return s.wrapTxErr(what, err)
 	}
 	return nil
+}
+
+// wrapTxErr gives an error out of a transaction the package prefix and
+// the action, unless the package already wrote it.
+func (s *Store) wrapTxErr(what string, err error) error {
+	var se *sqlite.Error
+	switch {
+	case errors.As(err, &se):
+		return s.dbErr(what, err)
+	case strings.HasPrefix(err.Error(), "catalog: "):
+		return err
+	}
+	return fmt.Errorf("catalog: %s: %w", what, err)
 }

@@ -310,24 +310,41 @@ func (s *Store) VerifyContext(ctx context.Context, repair bool) (VerifyReport, e
 	if err != nil {
 		return rep, err
 	}
+	// Blob temp files are tmp/PID.RANDOM.tmp; a marker temp file left by
+	// a crash while creating the catalog is .FORMAT.PID.RANDOM.tmp in the
+	// folder itself.
 	tmpRoot := filepath.Join(s.dir, tmpDir)
 	tmps, err := os.ReadDir(tmpRoot)
 	if err != nil {
 		return rep, fmt.Errorf("catalog: verify: read %s: %w", tmpRoot, err)
 	}
+	roots, err := os.ReadDir(s.dir)
+	if err != nil {
+		return rep, fmt.Errorf("catalog: verify: read %s: %w", s.dir, err)
+	}
+	type tempFile struct {
+		dir, name, pidText string
+		e                  fs.DirEntry
+	}
+	var temps []tempFile
 	for _, t := range tmps {
-		path := filepath.Join(tmpRoot, t.Name())
-		info, err := t.Info()
+		p, _, _ := strings.Cut(t.Name(), ".")
+		temps = append(temps, tempFile{tmpRoot, t.Name(), p, t})
+	}
+	for _, t := range roots {
+		if rest, ok := strings.CutPrefix(t.Name(), "."+formatFile+"."); ok && strings.HasSuffix(rest, ".tmp") {
+			p, _, _ := strings.Cut(rest, ".")
+			temps = append(temps, tempFile{s.dir, t.Name(), p, t})
+		}
+	}
+	for _, t := range temps {
+		path := filepath.Join(t.dir, t.name)
+		info, err := t.e.Info()
 		if err != nil {
 			continue // removed meanwhile
 		}
-		pid := -1
-		if p, _, ok := strings.Cut(t.Name(), "."); ok {
-			if n, err := strconv.Atoi(p); err == nil {
-				pid = n
-			}
-		}
-		if pid < 0 || s.stale(pid, s.host, info.ModTime(), now) {
+		pid, err := strconv.Atoi(t.pidText)
+		if err != nil || pid <= 0 || s.stale(pid, s.host, info.ModTime(), now) {
 			rep.StaleTemp = append(rep.StaleTemp, path)
 		} else {
 			rep.InFlight++

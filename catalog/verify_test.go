@@ -153,6 +153,8 @@ func TestVerifyOrphansAndTempFiles(t *testing.T) {
 	deadTemp := filepath.Join(s.Dir(), "tmp", "2147483646.123.tmp")
 	liveTemp := filepath.Join(s.Dir(), "tmp", strconv.Itoa(os.Getpid())+".456.tmp")
 	os.WriteFile(deadTemp, []byte("x"), 0o600)
+	deadMarker := filepath.Join(s.Dir(), ".FORMAT.2147483646.99.tmp")
+	os.WriteFile(deadMarker, []byte("scanfold"), 0o600)
 	os.WriteFile(liveTemp, []byte("y"), 0o600)
 	// An announcement by a dead process.
 	if _, err := s.db.Exec(`INSERT INTO pending_blobs VALUES ('f1', ?, 2147483646, ?, ?)`, sha, s.host, time.Now().UnixNano()); err != nil {
@@ -172,8 +174,8 @@ func TestVerifyOrphansAndTempFiles(t *testing.T) {
 	if len(rep.Orphans) != 1 || rep.Orphans[0].SHA256 != sha {
 		t.Errorf("orphans %+v, want %s", rep.Orphans, sha)
 	}
-	if !reflect.DeepEqual(rep.StaleTemp, []string{deadTemp}) || rep.InFlight != 1 || rep.StalePending != 1 {
-		t.Errorf("stale temp %v, in flight %d, stale pending %d; want [%s], 1, 1", rep.StaleTemp, rep.InFlight, rep.StalePending, deadTemp)
+	if !reflect.DeepEqual(rep.StaleTemp, []string{deadMarker, deadTemp}) || rep.InFlight != 1 || rep.StalePending != 1 {
+		t.Errorf("stale temp %v, in flight %d, stale pending %d; want [%s %s], 1, 1", rep.StaleTemp, rep.InFlight, rep.StalePending, deadMarker, deadTemp)
 	}
 	if !reflect.DeepEqual(rep.Strays, []string{stray}) {
 		t.Errorf("strays %v, want [%s]", rep.Strays, stray)
@@ -183,10 +185,10 @@ func TestVerifyOrphansAndTempFiles(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if len(rep.Removed) != 2 {
-		t.Errorf("repair removed %v, want the orphan and the dead temp file", rep.Removed)
+	if len(rep.Removed) != 3 {
+		t.Errorf("repair removed %v, want the orphan and the two dead temp files", rep.Removed)
 	}
-	for _, p := range []string{orphan, deadTemp} {
+	for _, p := range []string{orphan, deadTemp, deadMarker} {
 		if _, err := os.Stat(p); !errors.Is(err, os.ErrNotExist) {
 			t.Errorf("%s still present after repair", p)
 		}
