@@ -357,6 +357,23 @@ func TestOpenRefusesOtherFolders(t *testing.T) {
 		t.Fatal(err)
 	}
 	s.Close()
+	// A folder name with characters that mean something in a URI: the
+	// index must land inside it, under its real name.
+	odd := filepath.Join(dir, "a b?c#d%41e&f=g")
+	s, err = Open(odd, Options{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := s.File(context.Background(), testFiling("nut", 1)); err != nil {
+		t.Fatal(err)
+	}
+	s.Close()
+	if _, err := os.Stat(filepath.Join(odd, "index.db")); err != nil {
+		t.Errorf("index not inside %q: %v", odd, err)
+	}
+	if entries, _ := os.ReadDir(dir); len(entries) != 5 {
+		t.Errorf("%d entries in %s, want 5: file, home, newer, empty and the odd one", len(entries), dir)
+	}
 }
 
 func TestCorruptIndex(t *testing.T) {
