@@ -2,10 +2,13 @@ package validate
 
 import (
 	"math"
+	"sync"
+	"testing"
 
 	"gonum.org/v1/gonum/spatial/r3"
 
 	"github.com/scanfold/scanfold/mesh"
+	"github.com/scanfold/scanfold/mesh/parts"
 )
 
 // Test geometry built by hand, so that the tests of this package depend
@@ -89,4 +92,41 @@ func colorize(m *mesh.Mesh, c func(r3.Vec) mesh.RGB) *mesh.Mesh {
 		m.Colors[i] = c(v)
 	}
 	return m
+}
+
+// partMeshes caches the demo parts meshed for the tests.
+var partMeshes sync.Map
+
+// partSpacing is the lattice spacing the demo parts are meshed at in
+// the tests: 0.5 mm, fine enough for the 0.8 mm countersinks of the nut.
+const partSpacing = 0.0005
+
+// partMesh meshes a demo part as the pipeline does (reconstruct's
+// SynthPartMesh): its signed distance sampled on a lattice 1.5 spacings
+// beyond its bounds, marching cubes at level 0, each vertex coloured by
+// the part's colour function.
+func partMesh(t testing.TB, name string) (*mesh.Mesh, *parts.Part) {
+	t.Helper()
+	p, err := parts.Get(name)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if m, ok := partMeshes.Load(name); ok {
+		return m.(*mesh.Mesh), p
+	}
+	b := p.Bounds(1.5 * partSpacing)
+	g, err := mesh.SampleGrid(p.SDF, nil, b.Min, b.Max, partSpacing)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := mesh.MarchingCubes(g, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m.Colors = make([]mesh.RGB, len(m.Vertices))
+	for i, v := range m.Vertices {
+		m.Colors[i] = p.Color(v)
+	}
+	partMeshes.Store(name, m)
+	return m, p
 }

@@ -193,6 +193,8 @@ type restFace struct {
 //     it by less than MinTipAngle, the band is one resting pose with
 //     Rolls set (a long cylinder lying on its side); otherwise the
 //     band's probability goes out over its easiest exits.
+//  5. Poses whose resting normals lie within 3·CoplanarAngle of each
+//     other are merged into the more probable one.
 //
 // How polygonisation shows: a cylinder with n side facets has facets
 // that tip onto their neighbours at 180°/n. With n < 18 they exceed the
@@ -505,10 +507,38 @@ func settle(faces []restFace, com r3.Vec, opt StableOptions) []StablePose {
 			}
 		}
 	}
-	comp, ncomp := tarjan(out)
-	members := make([][]int, ncomp)
-	for i, c := range comp {
-		members[c] = append(members[c], i)
+	// A band that topples adds its exit edges to the graph, which may
+	// join its exits into a larger band; repeat until nothing changes,
+	// so that every edge mass flows along is in the graph and the
+	// components stay in topological order.
+	var comp []int
+	var ncomp int
+	var members [][]int
+	for iter := 0; ; iter++ {
+		comp, ncomp = tarjan(out)
+		members = make([][]int, ncomp)
+		for i, c := range comp {
+			members[c] = append(members[c], i)
+		}
+		changed := false
+		for _, ms := range members {
+			if len(ms) < 2 {
+				continue
+			}
+			exits, minOut := bandExits(faces, ms, opt)
+			if minOut >= opt.MinTipAngle {
+				continue
+			}
+			for _, e := range exits {
+				if !containsInt(out[e[0]], e[1]) {
+					out[e[0]] = append(out[e[0]], e[1])
+					changed = true
+				}
+			}
+		}
+		if !changed || iter > len(faces) {
+			break
+		}
 	}
 	mass := make([]float64, ncomp)
 	for i := range faces {
@@ -535,26 +565,8 @@ func settle(faces []restFace, com r3.Vec, opt StableOptions) []StablePose {
 			}
 			continue
 		}
-		// A band: its easiest exit out of the band.
-		inBand := map[int]bool{}
-		for _, i := range ms {
-			inBand[i] = true
-		}
-		type exit struct {
-			to  int
-			tip float64
-		}
-		var exits []exit
-		minOut := math.Inf(1)
-		for _, i := range ms {
-			for k, t := range faces[i].tip {
-				if len(faces[i].next[k]) == 0 || inBand[faces[i].next[k][0]] {
-					continue
-				}
-				exits = append(exits, exit{faces[i].next[k][0], t})
-				minOut = math.Min(minOut, t)
-			}
-		}
+		// A band: a resting pose, or it topples over its easiest exits.
+		exits, minOut := bandExits(faces, ms, opt)
 		if minOut >= opt.MinTipAngle || len(exits) == 0 {
 			rep := ms[0]
 			for _, i := range ms {
@@ -565,19 +577,68 @@ func settle(faces []restFace, com r3.Vec, opt StableOptions) []StablePose {
 			poses = append(poses, makePose(&faces[rep], com, mass[c], minOut, true, len(ms)))
 			continue
 		}
-		var take []int
+		share := mass[c] / float64(len(exits))
 		for _, e := range exits {
-			if e.tip <= minOut+opt.TieAngle {
-				take = append(take, e.to)
-			}
-		}
-		share := mass[c] / float64(len(take))
-		for _, j := range take {
-			mass[comp[j]] += share
+			mass[comp[e[1]]] += share
 		}
 	}
 	sort.SliceStable(poses, func(a, b int) bool { return poses[a].Probability > poses[b].Probability })
-	return poses
+	// Poses whose resting normals are within 3·CoplanarAngle are one
+	// pose found twice (a small group of nearly coplanar hull faces
+	// beside a large face, rocking between themselves): the less
+	// probable gives its probability to the more probable.
+	cosMerge := math.Cos(3 * opt.CoplanarAngle)
+	var merged []StablePose
+	for _, p := range poses {
+		dup := false
+		for k := range merged {
+			if r3.Dot(merged[k].Normal, p.Normal) >= cosMerge {
+				merged[k].Probability += p.Probability
+				dup = true
+				break
+			}
+		}
+		if !dup {
+			merged = append(merged, p)
+		}
+	}
+	return merged
+}
+
+// bandExits returns the edges (member, face beyond) by which the band
+// ms can tip out of itself with the smallest tipping angle (within
+// TieAngle), and that angle (+Inf when the band has no way out).
+func bandExits(faces []restFace, ms []int, opt StableOptions) ([][2]int, float64) {
+	inBand := map[int]bool{}
+	for _, i := range ms {
+		inBand[i] = true
+	}
+	minOut := math.Inf(1)
+	for _, i := range ms {
+		for k, t := range faces[i].tip {
+			if len(faces[i].next[k]) > 0 && !inBand[faces[i].next[k][0]] {
+				minOut = math.Min(minOut, t)
+			}
+		}
+	}
+	var exits [][2]int
+	for _, i := range ms {
+		for k, t := range faces[i].tip {
+			if len(faces[i].next[k]) > 0 && !inBand[faces[i].next[k][0]] && t <= minOut+opt.TieAngle {
+				exits = append(exits, [2]int{i, faces[i].next[k][0]})
+			}
+		}
+	}
+	return exits, minOut
+}
+
+func containsInt(s []int, v int) bool {
+	for _, x := range s {
+		if x == v {
+			return true
+		}
+	}
+	return false
 }
 
 // makePose builds the StablePose resting on rf.

@@ -9,6 +9,7 @@ import (
 	"gonum.org/v1/gonum/spatial/r3"
 
 	"github.com/scanfold/scanfold/mesh"
+	"github.com/scanfold/scanfold/mesh/parts"
 )
 
 // checkHull checks a hull against the brute-force definition: every
@@ -353,6 +354,37 @@ func BenchmarkConvexHull10k(b *testing.B) {
 	for b.Loop() {
 		if _, _, err := ConvexHull(pts); err != nil {
 			b.Fatal(err)
+		}
+	}
+}
+
+// The demo parts rest, among other poses, in the pose their part frame
+// is defined in (parts package: +z up, resting on z = 0), and the
+// labelbox on its six faces (handbook: a box).
+func TestStablePosesDemoParts(t *testing.T) {
+	if testing.Short() {
+		t.Skip("meshes five parts")
+	}
+	for _, name := range parts.Names() {
+		m, _ := partMesh(t, name)
+		res, err := StablePoses(m, DefaultStableOptions())
+		if err != nil {
+			t.Fatal(err)
+		}
+		var total float64
+		natural := false
+		for _, p := range res.Poses {
+			total += p.Probability
+			t.Logf("%s: normal %.2f p %.3f tip %.1f° height %.1f mm rolls %v", name, p.Normal, p.Probability, p.TipAngle*180/math.Pi, p.Height*1e3, p.Rolls)
+			if p.Normal.Z < -0.999 {
+				natural = true
+			}
+		}
+		if !near(total, 1, 1e-9) || !natural || res.MassFromHull {
+			t.Errorf("%s: total %v, natural pose found %v, mass from hull %v", name, total, natural, res.MassFromHull)
+		}
+		if name == "labelbox" && len(res.Poses) != 6 {
+			t.Errorf("labelbox: %d poses, want 6", len(res.Poses))
 		}
 	}
 }

@@ -7,6 +7,7 @@ import (
 	"gonum.org/v1/gonum/spatial/r3"
 
 	"github.com/scanfold/scanfold/mesh"
+	"github.com/scanfold/scanfold/mesh/parts"
 )
 
 // axisNear reports whether the list has an axis within 3° of dir with
@@ -127,6 +128,9 @@ func TestDetectSymmetryTetrahedron(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	for _, a := range rep.Geometry {
+		t.Logf("tetra axis %.4f fold %d mean %.3g", a.Axis, a.Fold, a.Mean)
+	}
 	if countFold(rep.Geometry, 3) != 4 || countFold(rep.Geometry, 2) != 3 {
 		t.Fatalf("tetrahedron axes: %+v", rep.Geometry)
 	}
@@ -178,5 +182,52 @@ func BenchmarkDetectSymmetryBox(b *testing.B) {
 		if _, err := DetectSymmetry(box, DefaultSymmetryOptions()); err != nil {
 			b.Fatal(err)
 		}
+	}
+}
+
+// Every demo part against the symmetry its definition declares
+// (parts.Part.Symmetry, stated in the parts package from the solid's
+// construction): the fold about the declared axis, the half turn about
+// the declared flip axis, and whether the colour breaks the symmetry.
+func TestDetectSymmetryDemoParts(t *testing.T) {
+	if testing.Short() {
+		t.Skip("meshes and searches five parts")
+	}
+	for _, name := range parts.Names() {
+		t.Run(name, func(t *testing.T) {
+			m, p := partMesh(t, name)
+			opt := DefaultSymmetryOptions()
+			opt.Resolution = partSpacing
+			rep, err := DetectSymmetry(m, opt)
+			if err != nil {
+				t.Fatal(err)
+			}
+			for _, a := range rep.Geometry {
+				t.Logf("%s geometry: axis %.3f fold %d mean %.3g mm p95 %.3g mm", name, a.Axis, a.Fold, a.Mean*1e3, a.P95*1e3)
+			}
+			for _, a := range rep.Color {
+				t.Logf("%s colour: axis %.3f fold %d mismatch %.3f", name, a.Axis, a.Fold, a.ColorMismatch)
+			}
+			t.Logf("%s: spacing %.3g mm, baseline %.3g / %.3g mm, colour baseline %.3f", name, rep.Spacing*1e3, rep.Baseline*1e3, rep.BaselineP95*1e3, rep.ColorBaseline)
+			sym := p.Symmetry
+			if sym.Fold != 1 && sym.Axis != (r3.Vec{}) {
+				if !axisNear(rep.Geometry, sym.Axis, sym.Fold) {
+					t.Errorf("declared %d-fold axis %v not found", sym.Fold, sym.Axis)
+				}
+			}
+			if sym.Flip != (r3.Vec{}) && !axisNear(rep.Geometry, sym.Flip, 2) && !(sym.Fold == 1 && axisNear(rep.Geometry, sym.Flip, 2)) {
+				t.Errorf("declared flip axis %v not found", sym.Flip)
+			}
+			// The number of rotations found equals the declared group's
+			// (continuous axes discretised alike).
+			declared := len(sym.Rotations(24))
+			got, err := rep.GeometryPoses(24)
+			if err != nil || len(got) != declared {
+				t.Errorf("geometry group: %d rotations (%v), declared %d", len(got), err, declared)
+			}
+			if rep.ColorBreaks() != sym.ColorBreaks {
+				t.Errorf("colour breaks the symmetry: detected %v, declared %v", rep.ColorBreaks(), sym.ColorBreaks)
+			}
+		})
 	}
 }
