@@ -93,10 +93,7 @@ func tstIcosphere(r float64, levels int) *mesh.Mesh {
 	return &mesh.Mesh{Vertices: v, Faces: f}
 }
 
-var (
-	tstPartOnce  sync.Map // name → *tstPartMesh
-	tstPartMutex sync.Mutex
-)
+var tstPartCache sync.Map // "name@spacing" → *tstPartMesh
 
 type tstPartMesh struct {
 	once sync.Once
@@ -105,29 +102,18 @@ type tstPartMesh struct {
 	err  error
 }
 
-// tstPart returns the demo part's surface extracted by marching cubes
-// from its SDF at the given lattice spacing (cached per name and
-// spacing).
+// tstPart returns the demo part's surface (parts.Part.Mesh: marching
+// cubes on its SDF at the given lattice spacing), cached per name and
+// spacing.
 func tstPart(t testing.TB, name string, spacing float64) (*mesh.Mesh, *parts.Part) {
 	t.Helper()
-	tstPartMutex.Lock()
-	v, _ := tstPartOnce.LoadOrStore(fmt.Sprintf("%s@%g", name, spacing), &tstPartMesh{})
-	tstPartMutex.Unlock()
+	v, _ := tstPartCache.LoadOrStore(fmt.Sprintf("%s@%g", name, spacing), &tstPartMesh{})
 	pm := v.(*tstPartMesh)
 	pm.once.Do(func() {
-		p, err := parts.Get(name)
-		if err != nil {
-			pm.err = err
-			return
+		pm.p, pm.err = parts.Get(name)
+		if pm.err == nil {
+			pm.m, pm.err = pm.p.Mesh(spacing)
 		}
-		b := p.Bounds(2 * spacing)
-		g, err := mesh.SampleGrid(p.SDF, p.Color, b.Min, b.Max, spacing)
-		if err != nil {
-			pm.err = err
-			return
-		}
-		pm.m, pm.err = mesh.MarchingCubes(g, 0)
-		pm.p = p
 	})
 	if pm.err != nil {
 		t.Fatal(pm.err)
