@@ -195,15 +195,6 @@ func TestErrorModelBadInput(t *testing.T) {
 	}
 }
 
-func randomUnit(rng *rand.Rand) r3.Vec {
-	for {
-		v := r3.Vec{X: rng.NormFloat64(), Y: rng.NormFloat64(), Z: rng.NormFloat64()}
-		if n := r3.Norm(v); n > 1e-6 {
-			return r3.Scale(1/n, v)
-		}
-	}
-}
-
 func randomPose(rng *rand.Rand, scale float64) mesh.Pose {
 	return mesh.Pose{
 		R: mesh.RotationFromAxisAngle(randomUnit(rng), rng.Float64()*math.Pi),
