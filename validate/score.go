@@ -233,9 +233,10 @@ func BaselineScore(m *ScoreModel, modelToCam mesh.Pose, obs *Observation, opt Ba
 	return d
 }
 
-// PointScoreOptions tunes PointScore. The weights are calibrated on the
-// check's own renders (CalibrateWeights); the defaults are what that
-// calibration chose on the demo parts (see the package tests).
+// PointScoreOptions tunes PointScore. The weights are meant to be
+// calibrated per part on the check's own renders (CalibrateWeights);
+// the defaults come from that calibration on the demo parts (see the
+// package tests, TestCalibrateWeights).
 type PointScoreOptions struct {
 	// DepthSigmas and MinDepthTolerance set the depth scale
 	// c_d = max(DepthSigmas·σ_z(z, θ), MinDepthTolerance).
@@ -251,14 +252,19 @@ type PointScoreOptions struct {
 	ColorScale float64
 	// NormalWeight and ColorWeight weigh the normal and colour cues
 	// (each in [0, 1], their sum at most 1); the rest of the support of
-	// a point at the right depth is unconditional.
-	// DEFAULT: 0.25 and 0.5
+	// a point at the right depth is unconditional. CalibrateWeights on
+	// occluded renders of the demo parts chose NormalWeight 0 for both
+	// parts tried (normals estimated from noisy depth add nothing the
+	// depth does not already say) and ColorWeight 0.5 for the valve,
+	// 0 for the labelbox; the default sits between.
+	// DEFAULT: 0 and 0.25
 	NormalWeight, ColorWeight float64
 	// OcclusionPenalty is the support of a point whose observation lies
 	// in front of it (something occludes it), and FreeSpacePenalty of
 	// one whose observation lies behind it (the sensor saw through the
 	// surface the hypothesis claims); both are subtracted, in [0, 1].
-	// DEFAULT: 0.1 and 1
+	// The calibration chose 0.3 and 1 for both parts.
+	// DEFAULT: 0.3 and 1
 	OcclusionPenalty, FreeSpacePenalty float64
 	// Color weighs the colour distance.
 	// DEFAULT: DefaultColorWeights()
@@ -270,8 +276,8 @@ func DefaultPointScoreOptions() PointScoreOptions {
 	return PointScoreOptions{
 		DepthSigmas: 3, MinDepthTolerance: 0.003,
 		NormalScale: 45 * math.Pi / 180, ColorScale: 0.5,
-		NormalWeight: 0.25, ColorWeight: 0.5,
-		OcclusionPenalty: 0.1, FreeSpacePenalty: 1,
+		NormalWeight: 0, ColorWeight: 0.25,
+		OcclusionPenalty: 0.3, FreeSpacePenalty: 1,
 		Color: DefaultColorWeights(),
 	}
 }
