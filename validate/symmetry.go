@@ -669,6 +669,15 @@ func (s *symSampler) screen(centroid r3.Vec, c candidate) []SymmetryAxis {
 			}
 		}
 		sort.SliceStable(minima, func(i, j int) bool { return score[minima[i]] < score[minima[j]] })
+		// Refining costs an ICP run each: try the best few. In a plane
+		// a true half-turn axis scores lowest (every other direction is
+		// at least 0.5° off it); on the sphere a polyhedral group has at
+		// most 31 axes (the icosahedron's 6 + 10 + 15).
+		tries := 40
+		if c.plane {
+			tries = 4
+		}
+		minima = minima[:min(len(minima), tries)]
 		for _, k := range minima {
 			if c.plane && len(out) > 0 {
 				break // the caller keeps one axis of the plane

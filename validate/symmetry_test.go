@@ -231,3 +231,16 @@ func TestDetectSymmetryDemoParts(t *testing.T) {
 		})
 	}
 }
+
+func BenchmarkDetectSymmetryPart(b *testing.B) {
+	for _, name := range parts.Names() {
+		m, _ := partMesh(b, name)
+		b.Run(name, func(b *testing.B) {
+			for b.Loop() {
+				if _, err := DetectSymmetry(m, DefaultSymmetryOptions()); err != nil {
+					b.Fatal(err)
+				}
+			}
+		})
+	}
+}
