@@ -101,10 +101,9 @@ var partMeshes sync.Map
 // the tests: 0.5 mm, fine enough for the 0.8 mm countersinks of the nut.
 const partSpacing = 0.0005
 
-// partMesh meshes a demo part as the pipeline does (reconstruct's
-// SynthPartMesh): its signed distance sampled on a lattice 1.5 spacings
-// beyond its bounds, marching cubes at level 0, each vertex coloured by
-// the part's colour function.
+// partMesh returns a demo part meshed as the pipeline meshes it
+// (parts.Part.Mesh: marching cubes on its signed distance, each vertex
+// coloured by the part's colour function), cached per name.
 func partMesh(t testing.TB, name string) (*mesh.Mesh, *parts.Part) {
 	t.Helper()
 	p, err := parts.Get(name)
@@ -114,18 +113,9 @@ func partMesh(t testing.TB, name string) (*mesh.Mesh, *parts.Part) {
 	if m, ok := partMeshes.Load(name); ok {
 		return m.(*mesh.Mesh), p
 	}
-	b := p.Bounds(1.5 * partSpacing)
-	g, err := mesh.SampleGrid(p.SDF, nil, b.Min, b.Max, partSpacing)
+	m, err := p.Mesh(partSpacing)
 	if err != nil {
 		t.Fatal(err)
-	}
-	m, err := mesh.MarchingCubes(g, 0)
-	if err != nil {
-		t.Fatal(err)
-	}
-	m.Colors = make([]mesh.RGB, len(m.Vertices))
-	for i, v := range m.Vertices {
-		m.Colors[i] = p.Color(v)
 	}
 	partMeshes.Store(name, m)
 	return m, p
