@@ -134,9 +134,9 @@ func SolidCentroid(m *mesh.Mesh) (r3.Vec, float64, error) {
 }
 
 // TriangleSolidAngle returns the solid angle (steradians) that triangle
-// (a, b, c) subtends at p, signed positive when the triangle is
-// counter-clockwise seen from p... i.e. when p lies behind its
-// right-hand normal. Van Oosterom & Strackee (1983, "The solid angle of
+// (a, b, c) subtends at p, positive when p lies behind the triangle's
+// right-hand normal (so every face of a closed, outward-oriented mesh is
+// positive seen from inside, and they add up to 4π). Van Oosterom & Strackee (1983, "The solid angle of
 // a plane triangle", IEEE Trans. Biomed. Eng. BME-30(2), DOI
 // 10.1109/TBME.1983.325207): with r_i the corners relative to p,
 //
