@@ -41,7 +41,7 @@ func TestReportVerdict(t *testing.T) {
 		func(r *Report) { r.Verdict = "maybe" },
 		func(r *Report) { r.Verdict = VerdictReady }, // better than its worst reason
 		func(r *Report) { r.Safety = "" },
-		func(r *Report) { r.Reasons = nil },                                   // rescan without a reason
+		func(r *Report) { r.Reasons = nil },                                  // rescan without a reason
 		func(r *Report) { r.Scorers = []ScorerResult{{Recall: math.NaN()}} }, // JSON cannot hold NaN
 		func(r *Report) { r.Kind = "other" },
 	}
