@@ -9,6 +9,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"sort"
 	"strings"
 	"sync"
 	"testing"
@@ -642,5 +643,101 @@ func TestComparePartialScan(t *testing.T) {
 	lo, hi := 1-share-0.01, 1-share+opt.Threshold*partial.BoundaryLength()/ref.Area()+0.01
 	if c.Precision != 1 || c.Recall < lo || c.Recall > hi {
 		t.Errorf("P=%v R=%v, want 1 and R in [%.3f, %.3f]", c.Precision, c.Recall, lo, hi)
+	}
+}
+
+// tstBenchPair returns the bracket at about 50k triangles and a copy
+// moved by a rigid transform, for the comparison benchmarks.
+func tstBenchPair(b *testing.B) (scan, ref *mesh.Mesh) {
+	ref, _ = tstPart(b, "bracket", 0.0006)
+	truth := mesh.PoseFromAxisAngle(r3.Vec{X: 1, Y: 2, Z: 3}, 0.7, r3.Vec{X: 0.1, Y: -0.05, Z: 0.3})
+	return ref.Transform(truth.Inv()), ref
+}
+
+func BenchmarkCompare(b *testing.B) {
+	scan, ref := tstBenchPair(b)
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := Compare(scan, ref, DefaultCompareOptions()); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(len(ref.Faces)), "faces")
+}
+
+func BenchmarkNewSurface(b *testing.B) {
+	_, ref := tstBenchPair(b)
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := NewSurface(ref); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkSurfaceClosest queries points within a few millimetres of
+// the surface (as ICP and the figures do), against the brute-force scan
+// over every face as the oracle's cost.
+func BenchmarkSurfaceClosest(b *testing.B) {
+	_, ref := tstBenchPair(b)
+	s, err := NewSurface(ref)
+	if err != nil {
+		b.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(1, 2))
+	qs := make([]r3.Vec, 4096)
+	for i := range qs {
+		v := ref.Vertices[rng.IntN(len(ref.Vertices))]
+		qs[i] = r3.Add(v, r3.Vec{X: 0.004 * (rng.Float64() - 0.5), Y: 0.004 * (rng.Float64() - 0.5), Z: 0.004 * (rng.Float64() - 0.5)})
+	}
+	b.Run("bvh", func(b *testing.B) {
+		b.ReportAllocs()
+		for i := 0; i < b.N; i++ {
+			s.Closest(qs[i%len(qs)])
+		}
+	})
+	b.Run("brute", func(b *testing.B) {
+		for i := 0; i < b.N; i++ {
+			p := qs[i%len(qs)]
+			best := math.Inf(1)
+			for _, f := range ref.Faces {
+				q, _ := ClosestPointOnTriangle(p, ref.Vertices[f[0]], ref.Vertices[f[1]], ref.Vertices[f[2]])
+				best = math.Min(best, r3.Norm2(r3.Sub(p, q)))
+			}
+		}
+	})
+}
+
+// selectNth must put at k what a full sort by (key, index) puts there
+// (the standard library's sort as the oracle), with the range split
+// about it; keys with many ties.
+func TestSelectNth(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 9))
+	for trial := 0; trial < 200; trial++ {
+		n := 1 + rng.IntN(60)
+		keys := make([]float64, n)
+		f := make([]int32, n)
+		for i := range keys {
+			keys[i] = float64(rng.IntN(5))
+			f[i] = int32(i)
+		}
+		rng.Shuffle(n, func(i, j int) { f[i], f[j] = f[j], f[i] })
+		key := func(i int32) float64 { return keys[i] }
+		want := append([]int32(nil), f...)
+		sort.Slice(want, func(a, b int) bool {
+			ka, kb := key(want[a]), key(want[b])
+			return ka < kb || (ka == kb && want[a] < want[b])
+		})
+		k := rng.IntN(n)
+		selectNth(f, k, key)
+		if f[k] != want[k] {
+			t.Fatalf("trial %d: element %d is %d, want %d", trial, k, f[k], want[k])
+		}
+		for i := range f {
+			before := key(f[i]) < key(f[k]) || (key(f[i]) == key(f[k]) && f[i] < f[k])
+			if (i < k && !before && f[i] != f[k]) || (i > k && before) {
+				t.Fatalf("trial %d: element %d (%d) on the wrong side of %d", trial, i, f[i], k)
+			}
+		}
 	}
 }

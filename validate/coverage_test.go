@@ -201,3 +201,17 @@ func TestCoverageErrors(t *testing.T) {
 		t.Errorf("cancelled: %v", err)
 	}
 }
+
+// BenchmarkCoverage72 counts coverage of the bracket at about 50k
+// triangles over a 72-frame upper-hemisphere sweep at 640×480.
+func BenchmarkCoverage72(b *testing.B) {
+	part, _ := tstPart(b, "bracket", 0.0006)
+	poses := tstHemisphere(b, r3.Vec{Z: 0.02}, 0.4, 24)
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if _, err := ComputeCoverage(context.Background(), part, mesh.DefaultIntrinsics(), poses, nil, DefaultCoverageOptions()); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(len(part.Faces)), "faces")
+}

@@ -350,3 +350,17 @@ func TestPictures(t *testing.T) {
 		t.Error("facing names")
 	}
 }
+
+// BenchmarkWriteReport writes a full check report (pictures at the
+// default sizes, eight check views).
+func BenchmarkWriteReport(b *testing.B) {
+	r, in := tstFullReport(b)
+	in.Views = append(in.Views, tstCheckViews(b, in.Model, 5)...)
+	dir := filepath.Join(b.TempDir(), "report")
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		if err := WriteReport(dir, r, in, DefaultPictureOptions()); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
