@@ -81,15 +81,32 @@ type ScorerResult struct {
 	// hypothesis was a correct pose; Views is their number.
 	Recall float64 `json:"recall"`
 	Views  int     `json:"views"`
-	// Threshold is the acceptance threshold on the score, and Margin
-	// the distance from it to the nearest score on the wrong side
-	// (score units; negative when right and wrong overlap).
-	Threshold float64 `json:"threshold"`
-	Margin    float64 `json:"margin"`
+	// Threshold is the acceptance threshold on the score (accept at or
+	// above it), with the shares of right and wrong hypotheses it
+	// accepts and the ROC area (Calibration).
+	Threshold       float64 `json:"threshold"`
+	TrueAcceptRate  float64 `json:"true_accept_rate"`
+	FalseAcceptRate float64 `json:"false_accept_rate"`
+	AUC             float64 `json:"auc"`
+	// Margin is the calibration's gap: the 5th percentile of the right
+	// scores less the 95th percentile of the wrong ones (score units;
+	// positive when the bulk of the two does not overlap).
+	Margin float64 `json:"margin"`
 	// RightScores and WrongScores are the scores of correct and wrong
 	// hypotheses, for the histogram.
 	RightScores []float64 `json:"right_scores,omitempty"`
 	WrongScores []float64 `json:"wrong_scores,omitempty"`
+}
+
+// NewScorerResult fills a ScorerResult from a calibration and the
+// scores it was made from.
+func NewScorerResult(name string, recall float64, views int, c *Calibration, right, wrong []float64) ScorerResult {
+	s := ScorerResult{Name: name, Recall: recall, Views: views,
+		RightScores: append([]float64(nil), right...), WrongScores: append([]float64(nil), wrong...)}
+	if c != nil {
+		s.Threshold, s.TrueAcceptRate, s.FalseAcceptRate, s.AUC, s.Margin = c.Threshold, c.TrueAcceptRate, c.FalseAcceptRate, c.AUC, c.Gap
+	}
+	return s
 }
 
 // AxisSummary is one symmetry axis in a report: a unit direction in the
@@ -320,7 +337,7 @@ func (r *Report) Validate() error {
 		return errors.New("validate: report without the safety caution")
 	}
 	for _, s := range r.Scorers {
-		for _, v := range append(append([]float64{s.Recall, s.Threshold, s.Margin}, s.RightScores...), s.WrongScores...) {
+		for _, v := range append(append([]float64{s.Recall, s.Threshold, s.Margin, s.TrueAcceptRate, s.FalseAcceptRate, s.AUC}, s.RightScores...), s.WrongScores...) {
 			if math.IsNaN(v) || math.IsInf(v, 0) {
 				return fmt.Errorf("validate: scorer %q has a figure that is not finite (%v)", s.Name, v)
 			}

@@ -110,9 +110,13 @@ func tstFullReport(t testing.TB) (*Report, ReportInputs) {
 	}
 	r := NewReport("bracket <&> \"test\"", Tool{Name: "scanfold", Version: "0.0-test"})
 	r.AddReason(VerdictReview, "color-breaks-symmetry", "the geometry has a half-turn symmetry that only the paint mark breaks")
+	right, wrong := []float64{0.6, 0.7, 0.8, 0.9, 0.75}, []float64{0.2, 0.3, 0.55, 0.4}
+	cal, err := Calibrate(right, wrong, DefaultCalibrationOptions())
+	if err != nil {
+		t.Fatal(err)
+	}
 	r.Scorers = []ScorerResult{
-		{Name: "depth inliers", Recall: 0.8, Views: 10, Threshold: 0.5, Margin: -0.05,
-			RightScores: []float64{0.6, 0.7, 0.8, 0.9, 0.75}, WrongScores: []float64{0.2, 0.3, 0.55, 0.4}},
+		NewScorerResult("depth inliers", 0.8, 10, cal, right, wrong),
 		{Name: "point difference", Recall: 1, Views: 10, Threshold: 0.6, Margin: 0.1},
 	}
 	r.Symmetry = &SymmetrySummary{Geometry: []AxisSummary{{Axis: [3]float64{0, 0.7071, 0.7071}, Fold: 2}}, HasColor: true, ColorBreaks: true}
