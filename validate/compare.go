@@ -870,6 +870,11 @@ func Compare(scan, reference *mesh.Mesh, opt CompareOptions) (*Comparison, error
 // (Surface.Closest), giving Scores; the signed scan distances give the
 // deviation figures, and every scan vertex gets its signed deviation.
 //
+// Both meshes must be wound outward (counter-clockwise seen from
+// outside, as marching cubes and CAD exports are): ICP pairs only
+// points whose outward normals agree, and deviations are signed by the
+// reference's outward side.
+//
 // Degenerate input: a mesh without a face of positive area is an error
 // wrapping mesh.ErrDegenerate.
 func CompareContext(ctx context.Context, scan, reference *mesh.Mesh, opt CompareOptions) (*Comparison, error) {
