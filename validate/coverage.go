@@ -500,3 +500,32 @@ func unseenRegions(m *mesh.Mesh, areas []float64, views []int32, total float64) 
 	sort.SliceStable(out, func(i, j int) bool { return out[i].Area > out[j].Area })
 	return out
 }
+
+// SaveCoveragePLY writes m (the mesh cov was computed on) to path as
+// binary PLY with each vertex coloured by its view count (CoverageColor,
+// ramp ending at the largest vertex value, at least 2) and a float
+// property "views" (VertexViews), replacing the file atomically.
+func SaveCoveragePLY(path string, m *mesh.Mesh, cov *Coverage) error {
+	if m == nil || cov == nil || len(cov.VertexViews) != len(m.Vertices) {
+		return errors.New("validate: SaveCoveragePLY needs the mesh the coverage was computed on")
+	}
+	full := 2
+	for _, v := range cov.VertexViews {
+		full = max(full, int(math.Ceil(float64(v))))
+	}
+	out := *m
+	out.Colors = make([]mesh.RGB, len(m.Vertices))
+	for i, v := range cov.VertexViews {
+		out.Colors[i] = CoverageColor(int(math.Round(float64(v))), full)
+		if v > 0 && v < 0.5 {
+			out.Colors[i] = CoverageColor(1, full) // touched by a seen face
+		}
+	}
+	opt := mesh.DefaultPLYOptions()
+	opt.Comments = []string{fmt.Sprintf("scanfold coverage: views = area-weighted mean number of the %d frames that saw the faces around each vertex", cov.Frames)}
+	opt.VertexScalars = []mesh.NamedScalars{{Name: "views", Values: cov.VertexViews}}
+	if err := mesh.SaveMeshPLY(path, &out, opt); err != nil {
+		return fmt.Errorf("validate: %w", err)
+	}
+	return nil
+}

@@ -1,9 +1,12 @@
 package validate
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"math"
+	"os"
+	"path/filepath"
 	"testing"
 
 	"gonum.org/v1/gonum/spatial/r3"
@@ -71,6 +74,18 @@ func TestCoverageCubeTwoViews(t *testing.T) {
 	}
 	if len(cov.FaceViews) != len(cube.Faces) || len(cov.VertexViews) != len(cube.Vertices) {
 		t.Fatal("per-face or per-vertex values missing")
+	}
+	path := filepath.Join(t.TempDir(), "coverage.ply")
+	if err := SaveCoveragePLY(path, cube, cov); err != nil {
+		t.Fatal(err)
+	}
+	data, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	back, sc, err := mesh.ReadPLYScalars(bytes.NewReader(data))
+	if err != nil || len(sc) != 1 || sc[0].Name != "views" || len(back.Colors) != len(cube.Vertices) {
+		t.Fatalf("coverage PLY: %v, %d scalars", err, len(sc))
 	}
 	// A top vertex in the middle of the top face was seen once.
 	for i, v := range cube.Vertices {
