@@ -26,6 +26,16 @@
 //   - Calibration (calibrate.go): threshold, ROC area, percentile gap and
 //     histograms from right and wrong hypotheses; the point score's
 //     weights picked on a grid.
+//   - Coverage (coverage.go): how much of a surface a sweep saw and how
+//     often, from renders of the surface at the sweep's camera poses;
+//     unseen regions as connected patches.
+//   - Comparison (compare.go): a scan aligned to a reference (principal
+//     axes, point-to-plane ICP on exact closest points, scale check) and
+//     measured by precision, recall and F-score at τ (Knapitsch et al.
+//     2017), Chamfer distance, Hausdorff-95 and signed deviation.
+//   - Reports (report.go, report_html.go, pictures.go): the verdict with
+//     its reasons and key figures as JSON, and a self-contained HTML
+//     folder with PNG pictures, written atomically.
 //
 // validate imports mesh, mesh/render and mesh/parts only.
 //
@@ -61,7 +71,11 @@
 // Symmetry detection on a surface of zero area is an error; a part with
 // no symmetry gets an empty report. A hypothesis with no model point
 // facing the camera inside the image scores 0 with Expected = 0.
-// Calibration needs at least one right and one wrong score. The grey
+// Calibration needs at least one right and one wrong score.
+// Coverage, Compare and NewSurface refuse a mesh without a face of
+// positive area (mesh.ErrDegenerate); faces of zero area are neither
+// seen nor unseen and never the closest face; no frames give zero
+// coverage. Scores need at least one point on each side. The grey
 // (S = 0) colours have no hue: HSVFromRGB reports H = 0 and the colour
 // distance ignores it.
 //
