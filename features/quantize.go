@@ -109,6 +109,11 @@ type quantizer struct {
 	half        *cosBins // L/2 fine bins over [0, π] for φ
 	keySpace    int      // nD·(n/2)³
 	planarBin   [2]int   // the feature-angle bins whose range touches 90°
+	// alphaBin[x] is the α bin of the fine level x mod L, for x in
+	// [0, 2L), so that a vote's bin is alphaBin[φ_s + L − φ_m] without
+	// a division; alphaNbr[x] is the neighbouring α bin on the side of
+	// the nearer edge (cyclic).
+	alphaBin, alphaNbr []uint8
 }
 
 func newQuantizer(p Params, diameter float64) *quantizer {
@@ -124,6 +129,18 @@ func newQuantizer(p Params, diameter float64) *quantizer {
 	q.feat = newCosBins(q.featBins)
 	q.half = newCosBins(q.alphaLevels / 2)
 	q.keySpace = q.distBins * q.featBins * q.featBins * q.featBins
+	q.alphaBin = make([]uint8, 2*q.alphaLevels)
+	q.alphaNbr = make([]uint8, 2*q.alphaLevels)
+	for x := range q.alphaBin {
+		lvl := x % q.alphaLevels
+		b := lvl / q.alphaSub
+		nb := b + 1
+		if 2*(lvl-b*q.alphaSub) < q.alphaSub {
+			nb = b - 1
+		}
+		q.alphaBin[x] = uint8(b)
+		q.alphaNbr[x] = uint8((nb + q.angleBins) % q.angleBins)
+	}
 	// 90° is at featBins/2 bin widths: inside bin ⌊featBins/2⌋ when
 	// featBins is odd (the default 15 gives bin 7, [84°, 96°)), on the
 	// edge between two bins when it is even.
