@@ -147,8 +147,8 @@ func poseError(truth, est mesh.Pose, sym []mesh.Pose, pts []r3.Vec) (dt, dr floa
 
 type recallStats struct {
 	views, correct, fine int
-	dts, drs            []float64
-	errs                []float64
+	dts, drs             []float64
+	errs                 []float64
 }
 
 func percentile(xs []float64, p float64) float64 {
