@@ -60,6 +60,12 @@ type VoteOptions struct {
 	// the scene at full resolution. nil means the voting scene.
 	// DEFAULT: nil
 	RefineScene *mesh.Cloud
+	// RefineModel is the model cloud ICP moves, with normals, in the
+	// model frame: typically a denser sample of the model surface than
+	// the table's cloud, which resolves thin walls and small features
+	// better. nil means the model's own cloud.
+	// DEFAULT: nil
+	RefineModel *mesh.Cloud
 	// ICP tunes the refinement. Its MaxDistance and HuberDelta, when 0,
 	// are derived from the model: 0.1·diameter (the clustering
 	// tolerance: a hypothesis is that close) and the model spacing.
@@ -479,6 +485,13 @@ func (m *Model) refine(hyps []Hypothesis, scene *mesh.Cloud, tree *mesh.KDTree, 
 		}
 		near = mesh.NewKDTree(dst.Points)
 	}
+	src := m.cloud
+	if opt.RefineModel != nil {
+		src = opt.RefineModel
+		if len(src.Normals) != len(src.Points) {
+			return fmt.Errorf("features: the refinement model has no normals: %w", ErrInvalid)
+		}
+	}
 	icp := opt.ICP
 	if icp.MaxDistance == 0 {
 		icp.MaxDistance = 0.1 * m.Diameter
@@ -487,12 +500,12 @@ func (m *Model) refine(hyps []Hypothesis, scene *mesh.Cloud, tree *mesh.KDTree, 
 		icp.HuberDelta = m.Spacing
 	}
 	for i := range hyps {
-		res, err := dampedICP(m.cloud, dst, near, hyps[i].ModelToScene, icp)
+		res, err := dampedICP(src, dst, near, hyps[i].ModelToScene, icp)
 		if err == nil {
 			fine := icp
 			fine.MaxDistance = fineDistance * m.Spacing
 			fine.MaxNormalAngle = fineNormalAngle
-			if r2, err2 := dampedICP(m.cloud, dst, near, res.Pose, fine); err2 == nil {
+			if r2, err2 := dampedICP(src, dst, near, res.Pose, fine); err2 == nil {
 				res = r2
 			}
 		}

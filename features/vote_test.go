@@ -108,13 +108,17 @@ func viewCloud(t testing.TB, m *mesh.Mesh, modelToCam mesh.Pose, spacing float64
 
 func modelOf(t testing.TB, m *mesh.Mesh) *Model {
 	opt := mesh.DefaultSampleOptions()
-	opt.Normals = mesh.NormalsFace
+	if m.Normals == nil {
+		opt.Normals = mesh.NormalsFace // flat-faced test meshes
+	}
+
 	c, spacing, err := mesh.Sample(m, opt)
 	if err != nil {
 		t.Fatal(err)
 	}
 	to := DefaultTableOptions()
 	to.Spacing = spacing
+
 	model, err := BuildTables(context.Background(), c, to)
 	if err != nil {
 		t.Fatal(err)
@@ -211,37 +215,3 @@ func TestDampedICPMatchesMeshICP(t *testing.T) {
 	}
 }
 
-// benchScene is a part standing on a support plane, seen from above at
-// an angle, sampled at the model spacing: about 5,000 points, as a
-// 640×480 view of a part on a table thinned to 5% of its diameter.
-func benchScene(t testing.TB, part *mesh.Mesh, spacing float64) (*mesh.Cloud, mesh.Pose) {
-	rng := rand.New(rand.NewPCG(7, 7))
-	truth := randomView(rng)
-	// A plane under the part in the part frame: z = 0 after a lift of
-	// the part; 0.36 × 0.30 m.
-	plane := boxAt(r3.Vec{X: -0.18, Y: -0.15, Z: -0.002}, r3.Vec{X: 0.36, Y: 0.30, Z: 0.002})
-	up := r3.Vec{X: 0, Y: 0, Z: 1}
-	view, err := mesh.LookAt(r3.Vec{X: 0.1, Y: -0.35, Z: 0.45}, r3.Vec{}, up)
-	if err != nil {
-		t.Fatal(err)
-	}
-	worldToCam := view.Inv()
-	_ = truth
-	scene := viewCloud(t, merge(part, plane), worldToCam, spacing, 9)
-	return scene, worldToCam
-}
-
-func BenchmarkVote(b *testing.B) {
-	part := blockPart()
-	model := modelOf(b, part)
-	scene, _ := benchScene(b, part, model.Spacing)
-	opt := DefaultVoteOptions()
-	opt.Refine = false
-	b.Logf("scene %d points, model %d points", len(scene.Points), len(model.Cloud().Points))
-	b.ResetTimer()
-	for i := 0; i < b.N; i++ {
-		if _, err := Vote(model, scene, opt); err != nil {
-			b.Fatal(err)
-		}
-	}
-}
