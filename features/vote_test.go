@@ -214,4 +214,3 @@ func TestDampedICPMatchesMeshICP(t *testing.T) {
 		t.Errorf("only %d well-constrained views compared", both)
 	}
 }
-
