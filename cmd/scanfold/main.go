@@ -32,7 +32,7 @@ func main() {
 // SIGINT).
 func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	app := newApp(stdout, stderr)
-	err := app.RunContext(ctx, args)
+	err := app.RunContext(ctx, interspersed(app, args))
 	switch {
 	case err == nil:
 		return 0
@@ -65,6 +65,8 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 		Commands: []*cli.Command{
 			versionCommand(),
 			synthCommand(),
+			sampleCommand(),
+			tablesCommand(),
 			demoCommand(),
 		},
 	}
