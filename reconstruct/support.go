@@ -32,7 +32,8 @@ type SupportOptions struct {
 	Central float64
 	// MinHeight and MaxHeight bound how far above the support a point of
 	// the part lies (metres). MinHeight must clear the plane's noise.
-	// DEFAULT: 0.004, 0.3
+	// DEFAULT: 0.0025, 0.3 (2σ of the axial noise at 0.55 m, so a 4 mm
+	// flange lying flat still rises clear of the plate)
 	MinHeight, MaxHeight float64
 	// MinPoints is the fewest back-projected points (at Stride) a part
 	// must have.
@@ -48,7 +49,7 @@ type SupportOptions struct {
 func DefaultSupportOptions() SupportOptions {
 	return SupportOptions{
 		RANSAC: DefaultRANSACOptions(), Stride: 4, MinDepth: 0.15, MaxDepth: 1.5,
-		Central: 0.6, MinHeight: 0.004, MaxHeight: 0.3, MinPoints: 25, MaxPlanes: 3,
+		Central: 0.6, MinHeight: 0.0025, MaxHeight: 0.3, MinPoints: 25, MaxPlanes: 3,
 	}
 }
 
@@ -65,6 +66,13 @@ type Support struct {
 	// Radius is the part's horizontal extent around Centre and Height its
 	// top above the plane (98th percentiles, robust to stray points).
 	Radius, Height float64
+	// SupportCentre and SupportRadius describe the support surface
+	// around the part: the centroid of its points connected to the part's
+	// surroundings, and the 95th percentile of their distance from it
+	// (for a turntable, about the plate; for a table, what the camera saw
+	// of it). Zero when the plane could not be refined.
+	SupportCentre r3.Vec
+	SupportRadius float64
 	// Points are the part's back-projected points (camera frame), and
 	// Pixels their pixel indices (y·width + x) in the depth image.
 	Points []r3.Vec
@@ -122,8 +130,42 @@ func FindSupport(depth []float32, intr mesh.Intrinsics, opt SupportOptions) (Sup
 			pl = pl.Flip()
 		}
 		sup, err := partAbove(pts, grid, gw, gh, s, intr.Width, intr.Fx, pl, opt, cx0, cx1, cy0, cy1)
+		inliers := len(fit.Inliers)
+		// A plate on a table, a board on a bench: what stands on the plane
+		// may itself be mostly a raised parallel plane, and the part stands
+		// on that. Step up while the component is such a plane.
+		for step := 0; err == nil && step < 3; step++ {
+			top, ok := raisedSupport(sup, pl, opt)
+			if !ok {
+				break
+			}
+			next, err2 := partAbove(pts, grid, gw, gh, s, intr.Width, intr.Fx, top.Plane, opt, cx0, cx1, cy0, cy1)
+			if err2 != nil || !surrounds(sup.Points, top, next) {
+				break
+			}
+			pl, sup, inliers = top.Plane, next, len(top.Inliers)
+		}
 		if err == nil {
-			sup.PlaneInliers = len(fit.Inliers)
+			// Refit the support on its points near the plane, leaving out
+			// the part and its surroundings: a part's flat flange a few
+			// millimetres up, blurred by noise, would tilt the fit.
+			if refit, idx, ok := refineSupport(pts, grid, gw, gh, s, intr.Width, pl, sup, opt); ok {
+				if again, err := partAbove(pts, grid, gw, gh, s, intr.Width, intr.Fx, refit, opt, cx0, cx1, cy0, cy1); err == nil {
+					sup, inliers = again, len(idx)
+					var c r3.Vec
+					for _, i := range idx {
+						c = r3.Add(c, pts[i])
+					}
+					c = r3.Scale(1/float64(len(idx)), c)
+					d := make([]float64, len(idx))
+					for k, i := range idx {
+						v := r3.Sub(pts[i], c)
+						d[k] = r3.Norm(r3.Sub(v, r3.Scale(r3.Dot(v, refit.Normal), refit.Normal)))
+					}
+					sup.SupportCentre, sup.SupportRadius = c, percentile(d, 0.95)
+				}
+			}
+			sup.PlaneInliers = inliers
 			return sup, nil
 		}
 		lastErr = err
@@ -140,6 +182,142 @@ func FindSupport(depth []float32, intr mesh.Intrinsics, opt SupportOptions) (Sup
 		cand = keep
 	}
 	return Support{}, lastErr
+}
+
+// raisedSupport reports whether the component sup found above pl is
+// largely a plane parallel to pl (within 10°), raised above it by more
+// than MinHeight, holding at least 30% of the component's points: a plate
+// or board that the part stands on. It returns that plane, oriented like
+// pl.
+func raisedSupport(sup Support, pl Plane, opt SupportOptions) (PlaneFit, bool) {
+	if len(sup.Points) < 3*opt.MinPoints {
+		return PlaneFit{}, false
+	}
+	fit, err := FitPlaneRANSAC(sup.Points, opt.RANSAC)
+	if err != nil {
+		return PlaneFit{}, false
+	}
+	if r3.Dot(fit.Plane.Normal, pl.Normal) < 0 {
+		fit.Plane = fit.Plane.Flip()
+	}
+	if r3.Dot(fit.Plane.Normal, pl.Normal) < math.Cos(10*math.Pi/180) {
+		return PlaneFit{}, false
+	}
+	if float64(len(fit.Inliers)) < 0.3*float64(len(sup.Points)) {
+		return PlaneFit{}, false
+	}
+	// Height of the raised plane above pl, measured at its inliers.
+	var h float64
+	for _, i := range fit.Inliers {
+		h += pl.Distance(sup.Points[i])
+	}
+	if h/float64(len(fit.Inliers)) < opt.MinHeight {
+		return PlaneFit{}, false
+	}
+	return fit, true
+}
+
+// refineSupport refits pl by least squares on the points near it that
+// connect, over the grid, to the part's surroundings, excluding every
+// grid cell within three cells of the part.
+func refineSupport(pts []r3.Vec, grid []int32, gw, gh, s, width int, pl Plane, part Support, opt SupportOptions) (Plane, []int, bool) {
+	excluded := make([]bool, len(grid))
+	const r = 3
+	for _, pix := range part.Pixels {
+		gx, gy := (pix%width)/s, (pix/width)/s
+		for dy := -r; dy <= r; dy++ {
+			for dx := -r; dx <= r; dx++ {
+				if x, y := gx+dx, gy+dy; x >= 0 && y >= 0 && x < gw && y < gh {
+					excluded[y*gw+x] = true
+				}
+			}
+		}
+	}
+	// Two rounds: the full threshold first, so that a slightly tilted
+	// starting plane still takes in the whole support on both sides, then
+	// half of it around the better plane.
+	var idx []int
+	var stack []int
+	seen := make([]bool, len(grid))
+	for _, thr := range []float64{opt.RANSAC.Threshold, opt.RANSAC.Threshold / 2} {
+		// Flood-fill the plane's cells that connect to the part's
+		// surroundings, so that other surfaces crossing the plane's
+		// extension (walls, clutter) stay out.
+		idx, stack = idx[:0], stack[:0]
+		clear(seen)
+		onPlane := func(g int) bool {
+			i := grid[g]
+			return i >= 0 && !excluded[g] && math.Abs(pl.Distance(pts[i])) <= thr
+		}
+		for g := range grid {
+			if excluded[g] {
+				continue
+			}
+			gx, gy := g%gw, g/gw
+			touches := false
+			for _, d := range [4][2]int{{1, 0}, {-1, 0}, {0, 1}, {0, -1}} {
+				if x, y := gx+d[0], gy+d[1]; x >= 0 && y >= 0 && x < gw && y < gh && excluded[y*gw+x] {
+					touches = true
+				}
+			}
+			if touches && onPlane(g) {
+				seen[g] = true
+				stack = append(stack, g)
+			}
+		}
+		for len(stack) > 0 {
+			g := stack[len(stack)-1]
+			stack = stack[:len(stack)-1]
+			idx = append(idx, int(grid[g]))
+			gx, gy := g%gw, g/gw
+			for _, d := range [4][2]int{{1, 0}, {-1, 0}, {0, 1}, {0, -1}} {
+				x, y := gx+d[0], gy+d[1]
+				if x < 0 || y < 0 || x >= gw || y >= gh {
+					continue
+				}
+				n := y*gw + x
+				if !seen[n] && onPlane(n) {
+					seen[n] = true
+					stack = append(stack, n)
+				}
+			}
+		}
+		if len(idx) < 3 { // (a nil idx would mean every point)
+			return pl, nil, false
+		}
+		refit, err := LeastSquaresPlane(pts, idx)
+		if err != nil {
+			return pl, nil, false
+		}
+		if r3.Dot(refit.Normal, pl.Normal) < 0 {
+			refit = refit.Flip()
+		}
+		pl = refit
+	}
+	return pl, idx, true
+}
+
+// surrounds reports whether the raised plane top reaches well beyond the
+// part found on it, all around: the part's foot lies within 0.8 of the
+// spread of top's inliers about their centroid (95th percentile of
+// their distances), and that spread is at least 1.5 times the part's
+// radius plus 1 cm. A turntable plate surrounds the part on it; the top
+// of a box does not surround clutter standing elsewhere, nor does the
+// flat flange of an angle bracket surround the upright one.
+func surrounds(points []r3.Vec, top PlaneFit, part Support) bool {
+	n := top.Plane.Normal
+	flat := func(v r3.Vec) r3.Vec { return r3.Sub(v, r3.Scale(r3.Dot(v, n), n)) }
+	var c r3.Vec
+	for _, i := range top.Inliers {
+		c = r3.Add(c, points[i])
+	}
+	c = r3.Scale(1/float64(len(top.Inliers)), c)
+	d := make([]float64, 0, len(top.Inliers))
+	for _, i := range top.Inliers {
+		d = append(d, r3.Norm(flat(r3.Sub(points[i], c))))
+	}
+	spread := percentile(d, 0.95)
+	return r3.Norm(flat(r3.Sub(part.Centre, c))) <= 0.8*spread && spread >= 1.5*part.Radius+0.01
 }
 
 func partAbove(pts []r3.Vec, grid []int32, gw, gh, s, width int, fx float64, pl Plane, opt SupportOptions, cx0, cx1, cy0, cy1 float64) (Support, error) {
@@ -200,18 +378,82 @@ func partAbove(pts []r3.Vec, grid []int32, gw, gh, s, width int, fx float64, pl 
 			}
 		}
 	}
-	best := int32(-1)
+	// A part stands on the support: the support must show around the
+	// part's foot. For every cell of a component's lowest layer (within
+	// 1 cm of the plane), look for a support cell within three grid cells
+	// and 3 cm in space (image neighbours can be far apart in depth);
+	// the share of foot cells that find one says how well the plane
+	// carries the component. Things standing on a lower surface beyond
+	// the support's edge (clutter behind a turntable plate) find none.
+	// A support cell must be part of a patch of the plane, not a slice
+	// where some other surface (a box's wall behind the plate) crosses
+	// the plane's extension: at least 15 of the 25 cells around it lie on
+	// the plane.
+	near := 3
+	onPlane := make([]bool, len(grid))
+	for g, i := range grid {
+		onPlane[g] = i >= 0 && math.Abs(height(i)) <= opt.RANSAC.Threshold
+	}
+	inPlane := func(g int) bool {
+		if !onPlane[g] {
+			return false
+		}
+		gx, gy := g%gw, g/gw
+		n := 0
+		for y := max(0, gy-2); y <= min(gh-1, gy+2); y++ {
+			for x := max(0, gx-2); x <= min(gw-1, gx+2); x++ {
+				if onPlane[y*gw+x] {
+					n++
+				}
+			}
+		}
+		return n >= 15
+	}
+	footN := make([]int, len(comps))
+	footOK := make([]int, len(comps))
+	for g, l := range label {
+		if l < 0 || height(grid[g]) > opt.MinHeight+0.01 {
+			continue
+		}
+		footN[l]++
+		cx, cy := g%gw, g/gw
+	search:
+		for dy := -near; dy <= near; dy++ {
+			for dx := -near; dx <= near; dx++ {
+				nx, ny := cx+dx, cy+dy
+				if nx >= 0 && ny >= 0 && nx < gw && ny < gh && inPlane(ny*gw+nx) &&
+					r3.Norm2(r3.Sub(pts[grid[ny*gw+nx]], pts[grid[g]])) <= 0.03*0.03 {
+					footOK[l]++
+					break search
+				}
+			}
+		}
+	}
+	// Score: size, times how well the plane carries it, discounted by
+	// the distance of its pixel centroid from the image centre.
+	icx, icy := (cx0+cx1)/2, (cy0+cy1)/2
+	half := math.Hypot(cx1-cx0, cy1-cy0) / 2
+	best, bestScore := int32(-1), 0.0
 	for id, c := range comps {
 		mx, my := c.sx/float64(c.n), c.sy/float64(c.n)
 		if c.n < opt.MinPoints || mx < cx0 || mx > cx1 || my < cy0 || my > cy1 {
 			continue
 		}
-		if best < 0 || c.n > comps[best].n {
-			best = int32(id)
+		carried := 0.0
+		if footN[id] > 0 {
+			carried = float64(footOK[id]) / float64(footN[id])
+		}
+		if carried < 0.25 {
+			continue
+		}
+		d := math.Hypot(mx-icx, my-icy) / half
+		score := float64(c.n) * carried / (1 + 4*d*d)
+		if best < 0 || score > bestScore {
+			best, bestScore = int32(id), score
 		}
 	}
 	if best < 0 {
-		return Support{}, fmt.Errorf("reconstruct: nothing of %d or more points stands between %.0f and %.0f mm above the support near the image centre: %w", opt.MinPoints, opt.MinHeight*1000, opt.MaxHeight*1000, ErrNoPart)
+		return Support{}, fmt.Errorf("reconstruct: nothing of %d or more points stands on the support, %.0f to %.0f mm above it, near the image centre: %w", opt.MinPoints, opt.MinHeight*1000, opt.MaxHeight*1000, ErrNoPart)
 	}
 	var part []r3.Vec
 	var pix []int

@@ -302,15 +302,16 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 	}
 	for l := range t.levels {
 		lv := &t.levels[l]
-		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm)
+		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, 1)
 	}
 }
 
 // vertexNormalMaps back-projects depth into vert and estimates normals
-// by the cross product of central differences, oriented toward the
-// camera; pixels without four valid neighbours within 5% of their depth
-// get a zero normal. It returns the number of pixels with a normal.
-func vertexNormalMaps(depth []float32, intr mesh.Intrinsics, vert, norm []r3.Vec) int {
+// by the cross product of central differences span pixels either side,
+// oriented toward the camera; pixels without four valid neighbours
+// within 5% of their depth get a zero normal. It returns the number of
+// pixels with a normal.
+func vertexNormalMaps(depth []float32, intr mesh.Intrinsics, vert, norm []r3.Vec, span int) int {
 	w, h := intr.Width, intr.Height
 	for y := 0; y < h; y++ {
 		for x := 0; x < w; x++ {
@@ -329,16 +330,16 @@ func vertexNormalMaps(depth []float32, intr mesh.Intrinsics, vert, norm []r3.Vec
 			i := y*w + x
 			norm[i] = r3.Vec{}
 			z := depth[i]
-			if z <= 0 || x == 0 || y == 0 || x == w-1 || y == h-1 {
+			if z <= 0 || x < span || y < span || x >= w-span || y >= h-span {
 				continue
 			}
 			jump := 0.05 * z
-			l, r, u, d := depth[i-1], depth[i+1], depth[i-w], depth[i+w]
+			l, r, u, d := depth[i-span], depth[i+span], depth[i-span*w], depth[i+span*w]
 			if l <= 0 || r <= 0 || u <= 0 || d <= 0 ||
 				abs32(l-z) > jump || abs32(r-z) > jump || abs32(u-z) > jump || abs32(d-z) > jump {
 				continue
 			}
-			n := mesh.Normalize(r3.Cross(r3.Sub(vert[i+1], vert[i-1]), r3.Sub(vert[i+w], vert[i-w])))
+			n := mesh.Normalize(r3.Cross(r3.Sub(vert[i+span], vert[i-span]), r3.Sub(vert[i+span*w], vert[i-span*w])))
 			if r3.Dot(n, vert[i]) > 0 {
 				n = r3.Scale(-1, n)
 			}

@@ -163,6 +163,14 @@ type DepthImage struct {
 	// Weight is nil (every measurement weighs 1) or the weight of each
 	// pixel's measurement, 0 to ignore it; see MeasurementWeights.
 	Weight []float32
+	// Behind is nil (voxels are updated out to the truncation μ behind
+	// the measured surface) or, per pixel, how far behind the surface
+	// along the ray voxels are updated (metres; see MeasurementBands).
+	// A narrow band behind the surface keeps a thin wall seen from both
+	// sides from thickening: one side's "behind" must not overwrite the
+	// other side's free space (Curless & Levoy 1996 ramp the weight down
+	// behind the surface for the same reason).
+	Behind []float32
 	// Alloc is nil (allocate along every valid pixel) or marks the pixels
 	// whose truncation bands may allocate new blocks: the region of
 	// interest. Pixels outside it still update blocks that exist.
@@ -182,6 +190,9 @@ func (im *DepthImage) check() error {
 	}
 	if im.Weight != nil && len(im.Weight) != n {
 		return fmt.Errorf("reconstruct: %d weights for %d pixels", len(im.Weight), n)
+	}
+	if im.Behind != nil && len(im.Behind) != n {
+		return fmt.Errorf("reconstruct: %d behind-bands for %d pixels", len(im.Behind), n)
 	}
 	if im.Alloc != nil && len(im.Alloc) != n {
 		return fmt.Errorf("reconstruct: allocation mask has %d pixels, want %d", len(im.Alloc), n)
@@ -361,6 +372,9 @@ func (v *Volume) integrateBlock(key BlockKey, b *Block, im *DepthImage, worldToC
 				// difference times the ray's length per unit depth.
 				sdf := (d - p.Z) * math.Sqrt(1+xn*xn+yn*yn)
 				if sdf < -mu {
+					continue
+				}
+				if im.Behind != nil && sdf < -float64(im.Behind[pix]) {
 					continue
 				}
 				wt := float32(1)

@@ -22,12 +22,16 @@ func TurntablePose(point, up r3.Vec, angle float64) mesh.Pose {
 	return worldToCam.Inv()
 }
 
-// TurntableView is the part as one turntable frame saw it, in that
-// frame's camera coordinates, with the plate angle relative to the
-// reference frame (radians, right-handed about the upward axis).
-type TurntableView struct {
-	Cloud *mesh.Cloud // points with normals
-	Angle float64
+// AxisPair is one alignment of what the turntable carries: From's
+// points, turned by Angle (radians, right-handed about the upward axis)
+// about the axis, should land on To's surface. Pairing frame 0's points
+// (From) with a later frame's (To) uses that frame's plate angle; pairing
+// a frame's points (From) with the fused model (To, in frame 0's pose)
+// uses minus its angle. To must have normals; From's normals, when
+// present, reject pairs whose normals disagree.
+type AxisPair struct {
+	From, To *mesh.Cloud
+	Angle    float64
 }
 
 // AxisOptions tunes EstimateAxisPoint.
@@ -43,11 +47,15 @@ type AxisOptions struct {
 	// Iterations bounds the alternations of pairing and solving.
 	// DEFAULT: 40
 	Iterations int
+	// Neighbours is how many nearest target points make the local
+	// surface a moved point is paired with.
+	// DEFAULT: 16
+	Neighbours int
 }
 
 // DefaultAxisOptions returns the documented defaults.
 func DefaultAxisOptions() AxisOptions {
-	return AxisOptions{MaxDistance: 0.02, FinalDistance: 0.004, MaxNormalAngle: math.Pi / 4, Iterations: 40}
+	return AxisOptions{MaxDistance: 0.02, FinalDistance: 0.004, MaxNormalAngle: math.Pi / 4, Iterations: 40, Neighbours: 16}
 }
 
 // AxisFit is the outcome of EstimateAxisPoint.
@@ -59,24 +67,20 @@ type AxisFit struct {
 }
 
 // EstimateAxisPoint finds where the turntable's axis (direction up,
-// known from the plate's plane) passes, by aligning the reference view
-// with the other views under the known plate angles. For a trial point p
-// a reference point x appears in view k at Rₖx + (I − Rₖ)p, which is
-// linear in p; pairing each moved point with its nearest neighbour in
-// view k and minimising the point-to-plane residuals
-// Σ((Rₖx + (I − Rₖ)p − y)·n_y)² over p's two coordinates across the
-// plate is a 2×2 linear least-squares problem, alternated with re-pairing
-// as in ICP (Chen & Medioni 1992). Views whose angle is near 0 or 360°
-// say little (I − Rₖ ≈ 0); views far apart overlap little: a spread of
-// 20°–120° either way works best. guess is the starting point (the foot
-// of the part's centroid on the plate is a good one).
-func EstimateAxisPoint(up, guess r3.Vec, ref *mesh.Cloud, views []TurntableView, opt AxisOptions) (AxisFit, error) {
+// known from the plate's plane) passes, from alignments under known
+// plate angles. For a trial point p a point x turned by R about the axis
+// lands at Rx + (I − R)p, which is linear in p; pairing each moved point
+// with its nearest neighbour on the target and minimising the
+// point-to-plane residuals Σ((Rx + (I − R)p − y)·n_y)² over p's two
+// coordinates across the plate is a 2×2 linear least-squares problem,
+// alternated with re-pairing as in ICP (Chen & Medioni 1992). Turns near
+// 0 or 360° say little (I − R ≈ 0); views far apart overlap little. guess
+// is the starting point (the foot of the part's centroid on the plate is
+// a good one).
+func EstimateAxisPoint(up, guess r3.Vec, pairs []AxisPair, opt AxisOptions) (AxisFit, error) {
 	up = mesh.Normalize(up)
 	if up == (r3.Vec{}) {
 		return AxisFit{}, fmt.Errorf("reconstruct: turntable axis direction is zero: %w", mesh.ErrDegenerate)
-	}
-	if len(ref.Points) == 0 || len(views) == 0 {
-		return AxisFit{}, fmt.Errorf("reconstruct: axis estimation needs a reference and at least one other view: %w", mesh.ErrDegenerate)
 	}
 	u := mesh.Normalize(r3.Cross(up, r3.Vec{X: 1}))
 	if u == (r3.Vec{}) {
@@ -84,52 +88,66 @@ func EstimateAxisPoint(up, guess r3.Vec, ref *mesh.Cloud, views []TurntableView,
 	}
 	v := r3.Cross(up, u)
 	type prepared struct {
-		rot  mesh.Mat3
-		ju   r3.Vec // (I − R)u
-		jv   r3.Vec // (I − R)v
-		tree *mesh.KDTree
-		c    *mesh.Cloud
+		rot      mesh.Mat3
+		ju, jv   r3.Vec // (I − R)u, (I − R)v
+		tree     *mesh.KDTree
+		from, to *mesh.Cloud
 	}
+	trees := map[*mesh.Cloud]*mesh.KDTree{}
 	var ps []prepared
-	for i, vw := range views {
-		if len(vw.Cloud.Normals) != len(vw.Cloud.Points) {
-			return AxisFit{}, fmt.Errorf("reconstruct: turntable view %d has no normals", i)
+	for i, pr := range pairs {
+		if len(pr.To.Normals) != len(pr.To.Points) {
+			return AxisFit{}, fmt.Errorf("reconstruct: turntable alignment %d: the target has no normals", i)
 		}
-		if len(vw.Cloud.Points) == 0 {
+		if len(pr.From.Points) == 0 || len(pr.To.Points) == 0 {
 			continue
 		}
-		r := mesh.RotationFromAxisAngle(up, vw.Angle)
-		ps = append(ps, prepared{
-			rot:  r,
-			ju:   r3.Sub(u, r.MulVec(u)),
-			jv:   r3.Sub(v, r.MulVec(v)),
-			tree: mesh.NewKDTree(vw.Cloud.Points),
-			c:    vw.Cloud,
-		})
+		tree := trees[pr.To]
+		if tree == nil {
+			tree = mesh.NewKDTree(pr.To.Points)
+			trees[pr.To] = tree
+		}
+		r := mesh.RotationFromAxisAngle(up, pr.Angle)
+		ps = append(ps, prepared{rot: r, ju: r3.Sub(u, r.MulVec(u)), jv: r3.Sub(v, r.MulVec(v)), tree: tree, from: pr.From, to: pr.To})
+	}
+	if len(ps) == 0 {
+		return AxisFit{}, fmt.Errorf("reconstruct: axis estimation needs at least one alignment of non-empty clouds: %w", mesh.ErrDegenerate)
 	}
 	cosMax := math.Cos(opt.MaxNormalAngle)
 	p := guess
 	fit := AxisFit{}
-	useNormals := len(ref.Normals) == len(ref.Points)
 	for it := 0; it < opt.Iterations; it++ {
 		// Shrink the pairing distance geometrically over the first half.
 		f := math.Min(1, float64(it)/math.Max(1, float64(opt.Iterations)/2))
 		maxD := opt.MaxDistance * math.Pow(opt.FinalDistance/opt.MaxDistance, f)
 		var a00, a01, a11, b0, b1, sse float64
-		pairs := 0
+		count := 0
+		var nb []mesh.Neighbor
 		for _, pv := range ps {
 			off := r3.Sub(p, pv.rot.MulVec(p)) // (I − R)p
-			for i, x := range ref.Points {
+			useNormals := len(pv.from.Normals) == len(pv.from.Points)
+			for i, x := range pv.from.Points {
 				q := r3.Add(pv.rot.MulVec(x), off)
-				j, d2 := pv.tree.Nearest(q)
-				if j < 0 || d2 > maxD*maxD {
+				nb = pv.tree.KNearest(q, opt.Neighbours, nb)
+				if len(nb) == 0 || nb[0].Dist2 > maxD*maxD {
 					continue
 				}
-				n := pv.c.Normals[j]
-				if useNormals && r3.Dot(pv.rot.MulVec(ref.Normals[i]), n) < cosMax {
+				// Pair with the local surface of the target, the mean of
+				// its nearest points and normals, not with one noisy point:
+				// the nearest of many noisy points is the one whose noise
+				// happens to bring it closest, which biases the fit along
+				// the noise (the viewing rays).
+				var cp, cn r3.Vec
+				for _, m := range nb {
+					cp = r3.Add(cp, pv.to.Points[m.Index])
+					cn = r3.Add(cn, pv.to.Normals[m.Index])
+				}
+				cp = r3.Scale(1/float64(len(nb)), cp)
+				n := mesh.Normalize(cn)
+				if n == (r3.Vec{}) || useNormals && r3.Dot(pv.rot.MulVec(pv.from.Normals[i]), n) < cosMax {
 					continue
 				}
-				res := r3.Dot(r3.Sub(q, pv.c.Points[j]), n)
+				res := r3.Dot(r3.Sub(q, cp), n)
 				gu, gv := r3.Dot(pv.ju, n), r3.Dot(pv.jv, n)
 				a00 += gu * gu
 				a01 += gu * gv
@@ -137,15 +155,15 @@ func EstimateAxisPoint(up, guess r3.Vec, ref *mesh.Cloud, views []TurntableView,
 				b0 += gu * res
 				b1 += gv * res
 				sse += res * res
-				pairs++
+				count++
 			}
 		}
-		fit.Pairs = pairs
+		fit.Pairs = count
 		fit.Iterations = it + 1
-		if pairs < 10 {
-			return fit, fmt.Errorf("reconstruct: turntable views do not overlap (%d pairs within %.1f mm): %w", pairs, maxD*1000, mesh.ErrDegenerate)
+		if count < 10 {
+			return fit, fmt.Errorf("reconstruct: turntable views do not overlap (%d pairs within %.1f mm): %w", count, maxD*1000, mesh.ErrDegenerate)
 		}
-		fit.RMS = math.Sqrt(sse / float64(pairs))
+		fit.RMS = math.Sqrt(sse / float64(count))
 		det := a00*a11 - a01*a01
 		if !(det > 1e-12*(a00*a11+1e-300)) {
 			return fit, fmt.Errorf("reconstruct: the views do not constrain the axis position: %w", mesh.ErrDegenerate)

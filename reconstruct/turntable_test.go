@@ -69,14 +69,15 @@ func TestEstimateAxisPoint(t *testing.T) {
 	if len(picked) != 6 {
 		t.Fatalf("picked %v", picked)
 	}
-	var views []TurntableView
+	var pairs []AxisPair
+	ref := view(0)
 	for _, k := range picked {
-		views = append(views, TurntableView{Cloud: view(angles[k]), Angle: angles[k]})
+		pairs = append(pairs, AxisPair{From: ref, To: view(angles[k]), Angle: angles[k]})
 	}
 	up := tableToCam.Rotate(upT)
 	truth := tableToCam.Apply(axisT)
 	guess := tableToCam.Apply(r3.Vec{X: -0.01, Z: 0.01}) // 2.8 cm off
-	fit, err := EstimateAxisPoint(up, guess, view(0), views, DefaultAxisOptions())
+	fit, err := EstimateAxisPoint(up, guess, pairs, DefaultAxisOptions())
 	if err != nil {
 		t.Fatal(err)
 	}
