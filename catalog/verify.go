@@ -94,6 +94,19 @@ type blobUse struct {
 
 // VerifyContext is Verify with a context, checked between files.
 func (s *Store) VerifyContext(ctx context.Context, repair bool) (VerifyReport, error) {
+	return s.VerifyProgress(ctx, repair, nil)
+}
+
+// VerifyProgress is VerifyContext that also reports its progress
+// through the blob files: progress(done, total) is called before each
+// file is hashed and once more when all are (done == total); total is
+// the number of blob-named files under blobs/ when the check listed
+// them. A nil progress reports nothing. progress runs on the caller's
+// goroutine and must not call the Store.
+func (s *Store) VerifyProgress(ctx context.Context, repair bool, progress func(done, total int)) (VerifyReport, error) {
+	if progress == nil {
+		progress = func(int, int) {}
+	}
 	var rep VerifyReport
 	now := time.Now()
 
@@ -203,6 +216,9 @@ func (s *Store) VerifyContext(ctx context.Context, repair bool) (VerifyReport, e
 	if err != nil {
 		return rep, fmt.Errorf("catalog: verify: read %s: %w", root, err)
 	}
+	// List every blob file first, so that progress knows the total.
+	type blobFile struct{ sha, path string }
+	var blobFiles []blobFile
 	for _, sub := range subs {
 		subPath := filepath.Join(root, sub.Name())
 		if !sub.IsDir() || len(sub.Name()) != 2 || !validSHA(sub.Name()+strings.Repeat("0", 62)) {
@@ -214,53 +230,59 @@ func (s *Store) VerifyContext(ctx context.Context, repair bool) (VerifyReport, e
 			return rep, fmt.Errorf("catalog: verify: read %s: %w", subPath, err)
 		}
 		for _, f := range files {
-			if err := ctx.Err(); err != nil {
-				return rep, fmt.Errorf("catalog: verify: %w", err)
-			}
 			path := filepath.Join(subPath, f.Name())
 			sha := sub.Name() + f.Name()
 			if !f.Type().IsRegular() || !validSHA(sha) {
 				rep.Strays = append(rep.Strays, path)
 				continue
 			}
-			onDisk[sha] = true
-			sum, size, err := hashFile(ctx, path)
-			if err != nil {
-				if ctx.Err() != nil {
-					return rep, fmt.Errorf("catalog: verify: %w", ctx.Err())
-				}
-				if errors.Is(err, fs.ErrNotExist) { // removed meanwhile
-					delete(onDisk, sha)
-					continue
-				}
-				return rep, fmt.Errorf("catalog: verify: blob %s: read %s: %w", sha, path, err)
+			blobFiles = append(blobFiles, blobFile{sha, path})
+		}
+	}
+	for i, bf := range blobFiles {
+		progress(i, len(blobFiles))
+		if err := ctx.Err(); err != nil {
+			return rep, fmt.Errorf("catalog: verify: %w", err)
+		}
+		sha, path := bf.sha, bf.path
+		onDisk[sha] = true
+		sum, size, err := hashFile(ctx, path)
+		if err != nil {
+			if ctx.Err() != nil {
+				return rep, fmt.Errorf("catalog: verify: %w", ctx.Err())
 			}
-			rep.Blobs++
-			rep.Bytes += size
-			u := used[sha]
-			if u == nil {
-				issue := BlobIssue{SHA256: sha, Path: path, Size: size, Detail: "no revision references it"}
-				if sum != sha {
-					issue.Detail += fmt.Sprintf("; its content hashes to %s", sum)
-				}
-				orphanCandidates = append(orphanCandidates, issue)
+			if errors.Is(err, fs.ErrNotExist) { // removed meanwhile
+				delete(onDisk, sha)
 				continue
 			}
-			var detail string
-			switch {
-			case size != u.size:
-				detail = fmt.Sprintf("%d bytes, want %d", size, u.size)
-			case sum != sha:
-				detail = fmt.Sprintf("content hashes to %s", sum)
+			return rep, fmt.Errorf("catalog: verify: blob %s: read %s: %w", sha, path, err)
+		}
+		rep.Blobs++
+		rep.Bytes += size
+		u := used[sha]
+		if u == nil {
+			issue := BlobIssue{SHA256: sha, Path: path, Size: size, Detail: "no revision references it"}
+			if sum != sha {
+				issue.Detail += fmt.Sprintf("; its content hashes to %s", sum)
 			}
-			if detail != "" {
-				rep.Damaged = append(rep.Damaged, BlobIssue{SHA256: sha, Path: path, Size: size, Detail: detail, Users: u.users})
-				for _, user := range u.users {
-					bad[user[:strings.LastIndexByte(user, ':')]] = true
-				}
+			orphanCandidates = append(orphanCandidates, issue)
+			continue
+		}
+		var detail string
+		switch {
+		case size != u.size:
+			detail = fmt.Sprintf("%d bytes, want %d", size, u.size)
+		case sum != sha:
+			detail = fmt.Sprintf("content hashes to %s", sum)
+		}
+		if detail != "" {
+			rep.Damaged = append(rep.Damaged, BlobIssue{SHA256: sha, Path: path, Size: size, Detail: detail, Users: u.users})
+			for _, user := range u.users {
+				bad[user[:strings.LastIndexByte(user, ':')]] = true
 			}
 		}
 	}
+	progress(len(blobFiles), len(blobFiles))
 	for sha, u := range used {
 		if !onDisk[sha] {
 			// A removal since the snapshot may have collected it.

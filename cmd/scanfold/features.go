@@ -183,24 +183,40 @@ func tablesCommand() *cli.Command {
 // parses like "scanfold sample --out C.ply MESH" (the flag parser stops
 // at the first argument that is not a flag). A flag's value is the next
 // token unless the flag is boolean or written --name=value; "--" ends
-// the flags. Commands without positional arguments are unaffected.
+// the flags. Commands without positional arguments are unaffected. A
+// command with subcommands ("catalog show NAME --json") keeps its own
+// flags before the subcommand, whose arguments are arranged in turn.
 func interspersed(app *cli.App, args []string) []string {
+	return intersperse(app.Commands, nil, args)
+}
+
+// intersperse does interspersed's work on args: args[0] (the program or
+// the parent command), the parent's flags (parentFlags says which take
+// a value), then one of cmds and its arguments.
+func intersperse(cmds []*cli.Command, parentFlags []cli.Flag, args []string) []string {
 	if len(args) < 2 {
 		return args
 	}
-	// The command name is the first token that is not a flag.
+	parentBool := boolFlags(parentFlags)
+	// The command name is the first token that is neither a flag nor the
+	// value of a parent flag.
 	ci := -1
 	for i := 1; i < len(args); i++ {
-		if !strings.HasPrefix(args[i], "-") {
+		a := args[i]
+		if !strings.HasPrefix(a, "-") {
 			ci = i
 			break
+		}
+		name := strings.TrimLeft(a, "-")
+		if b, known := parentBool[name]; known && !b && !strings.Contains(name, "=") {
+			i++ // skip the parent flag's value
 		}
 	}
 	if ci < 0 {
 		return args
 	}
 	var cmd *cli.Command
-	for _, c := range app.Commands {
+	for _, c := range cmds {
 		if c.HasName(args[ci]) {
 			cmd = c
 		}
@@ -208,13 +224,10 @@ func interspersed(app *cli.App, args []string) []string {
 	if cmd == nil {
 		return args
 	}
-	isBool := map[string]bool{"help": true, "h": true}
-	for _, f := range cmd.Flags {
-		_, b := f.(*cli.BoolFlag)
-		for _, n := range f.Names() {
-			isBool[n] = b
-		}
+	if len(cmd.Subcommands) > 0 {
+		return append(append([]string{}, args[:ci]...), intersperse(cmd.Subcommands, cmd.Flags, args[ci:])...)
 	}
+	isBool := boolFlags(cmd.Flags)
 	var flags, pos []string
 	rest := args[ci+1:]
 	for i := 0; i < len(rest); i++ {
@@ -239,4 +252,17 @@ func interspersed(app *cli.App, args []string) []string {
 		out = append(out, "--")
 	}
 	return append(out, pos...)
+}
+
+// boolFlags maps every name of flags (and help, h) to whether the flag
+// is boolean (takes no value).
+func boolFlags(flags []cli.Flag) map[string]bool {
+	isBool := map[string]bool{"help": true, "h": true}
+	for _, f := range flags {
+		_, b := f.(*cli.BoolFlag)
+		for _, n := range f.Names() {
+			isBool[n] = b
+		}
+	}
+	return isBool
 }

@@ -68,6 +68,7 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 			sampleCommand(),
 			tablesCommand(),
 			demoCommand(),
+			catalogCommand(),
 		},
 	}
 }
