@@ -126,8 +126,9 @@
 // temp files and stale announcements. It never deletes a revision or a
 // damaged blob: those need a person's decision (remove the revision, or
 // file the same content again, which replaces the damaged file).
-// OpenBlob re-hashes as it reads and ends with ErrDamaged instead of
-// io.EOF when the content does not match.
+// VerifyProgress reports progress through the blob files, for a
+// progress bar. OpenBlob re-hashes as it reads and ends with ErrDamaged
+// instead of io.EOF when the content does not match.
 //
 // # Export and the manifest
 //

@@ -188,6 +188,38 @@ func byteSize(n int64) string {
 	return fmt.Sprintf("%.2f GB", float64(n)/1e9)
 }
 
+// table is a text/tabwriter (two spaces between columns) whose Flush
+// writes to w with the padding at the ends of lines trimmed.
+type table struct {
+	*tabwriter.Writer
+	buf bytes.Buffer
+	w   io.Writer
+}
+
+func newTable(w io.Writer) *table {
+	t := &table{w: w}
+	t.Writer = tabwriter.NewWriter(&t.buf, 0, 0, 2, ' ', 0)
+	return t
+}
+
+// Flush aligns what was written and copies it to the destination.
+func (t *table) Flush() error {
+	if err := t.Writer.Flush(); err != nil {
+		return err
+	}
+	var out bytes.Buffer
+	for _, line := range strings.SplitAfter(t.buf.String(), "\n") {
+		nl := strings.HasSuffix(line, "\n")
+		out.WriteString(strings.TrimRight(line, " \n"))
+		if nl {
+			out.WriteByte('\n')
+		}
+	}
+	t.buf.Reset()
+	_, err := t.w.Write(out.Bytes())
+	return err
+}
+
 // printJSON writes v as indented JSON, with <, > and & left readable.
 func printJSON(w io.Writer, v any) error {
 	enc := json.NewEncoder(w)
@@ -230,7 +262,7 @@ func catalogList(c *cli.Context) error {
 		_, err := fmt.Fprintf(w, "catalog %s holds no parts\n", s.Dir())
 		return err
 	}
-	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	tw := newTable(w)
 	fmt.Fprintln(tw, "PART\tLATEST\tVERDICT\tREVISIONS\tUPDATED")
 	for _, p := range list {
 		fmt.Fprintf(tw, "%s\t@%d\t%s\t%d\t%s\n", p.Name, p.Latest, p.Verdict, p.Revisions, localTime(p.Updated))
@@ -275,7 +307,7 @@ func catalogShow(c *cli.Context) error {
 
 // printRevision writes a revision for people.
 func printRevision(w io.Writer, r *catalog.Revision, revs []int) error {
-	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	tw := newTable(w)
 	line := func(key, format string, args ...any) {
 		fmt.Fprintf(tw, "  %s\t"+format+"\n", append([]any{key}, args...)...)
 	}
@@ -315,7 +347,7 @@ func printRevision(w io.Writer, r *catalog.Revision, revs []int) error {
 		line(key, "[% .6g % .6g % .6g % .6g]", m[4*i], m[4*i+1], m[4*i+2], m[4*i+3])
 	}
 	p := r.PPF
-	line("PPF", "sampling step %s, distance step %s, %d angle bins, every %d scene point as reference",
+	line("PPF", "sampling step %s, distance step %s, %d angle bins, reference-point stride %d",
 		units.FormatLength(p.SamplingStep), units.FormatLength(p.DistanceStep), p.AngleBins, p.RefPointEvery)
 
 	fmt.Fprintln(tw, "provenance")
@@ -350,7 +382,7 @@ func printRevision(w io.Writer, r *catalog.Revision, revs []int) error {
 		roles = append(roles, role)
 	}
 	sort.Strings(roles)
-	tw = tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	tw = newTable(w)
 	fmt.Fprintln(tw, "  ROLE\tSIZE\tBYTES\tMEDIA TYPE\tSHA-256")
 	for _, role := range roles {
 		b := r.Blobs[role]
@@ -468,7 +500,7 @@ func catalogExport(c *cli.Context) error {
 	}
 	w := c.App.Writer
 	fmt.Fprintf(w, "exported %s (verdict %s) to %s\n", catalog.FormatRef(m.Part, m.Revision), m.Verdict, to)
-	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	tw := newTable(w)
 	var total int64
 	for _, f := range m.Files {
 		from := ""
@@ -584,7 +616,7 @@ func verifyProblems(r *catalog.VerifyReport) string {
 // printVerify writes a verify report for people.
 func printVerify(w io.Writer, dir string, r *catalog.VerifyReport, repair bool) {
 	fmt.Fprintf(w, "verified catalog %s\n", dir)
-	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	tw := newTable(w)
 	line := func(key string, n int, detail string) {
 		if detail != "" {
 			detail = "  " + detail
