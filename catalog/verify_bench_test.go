@@ -7,9 +7,9 @@ import (
 
 // BenchmarkVerify20MB verifies a catalog of 8 revisions holding about
 // 20 MB of blob files (33 distinct files: 4 roles each and one shared
-// picture): the cost of listing,
-// re-hashing every file with SHA-256 and checking it against the index,
-// with a progress callback as the CLI passes one.
+// picture): the cost of listing, re-hashing every file with SHA-256
+// and checking it against the index, with a progress callback as the
+// CLI passes one.
 func BenchmarkVerify20MB(b *testing.B) {
 	s := openTest(b)
 	ctx := context.Background()
