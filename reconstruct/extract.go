@@ -25,7 +25,7 @@ func (v *Volume) Extract(minWeight float32) (*mesh.Mesh, error) {
 	nan := float32(math.NaN())
 	observed := 0
 	for n, k := range keys {
-		b := v.blocks[k]
+		b := v.lookup(k)
 		vals := values[n*blockVoxels : (n+1)*blockVoxels]
 		cols := colors[n*blockVoxels : (n+1)*blockVoxels]
 		for i := range vals {

@@ -32,7 +32,7 @@ func (s *sampler) block(i, j, k int) (*Block, int) {
 	bz, rk := floorDiv(k)
 	key := BlockKey{bx, by, bz}
 	if !s.valid || key != s.lastKey {
-		s.last = s.v.blocks[key]
+		s.last = s.v.lookup(key)
 		s.lastKey = key
 		s.valid = true
 	}
@@ -47,14 +47,20 @@ func (s *sampler) trilinear(p r3.Vec) (float32, bool) {
 	gx, gy, gz := p.X*inv, p.Y*inv, p.Z*inv
 	fx, fy, fz := math.Floor(gx), math.Floor(gy), math.Floor(gz)
 	i, j, k := int(fx), int(fy), int(fz)
-	tx, ty, tz := float32(gx-fx), float32(gy-fy), float32(gz-fz)
+	b, idx := s.block(i, j, k)
+	return s.interpolate(b, idx, i, j, k, float32(gx-fx), float32(gy-fy), float32(gz-fz))
+}
+
+// interpolate blends the eight voxels from (i, j, k) to (i+1, j+1, k+1)
+// with weights tx, ty, tz; b and idx are voxel (i, j, k)'s block and
+// index (b nil when the block is not allocated).
+func (s *sampler) interpolate(b *Block, idx, i, j, k int, tx, ty, tz float32) (float32, bool) {
+	if b == nil {
+		return 0, false
+	}
 	var c [8]float32
 	if i&7 != 7 && j&7 != 7 && k&7 != 7 {
 		// All eight corners lie in one block.
-		b, idx := s.block(i, j, k)
-		if b == nil {
-			return 0, false
-		}
 		for n, off := range [8]int{0, 1, BlockSide, BlockSide + 1, BlockSide * BlockSide, BlockSide*BlockSide + 1, BlockSide*BlockSide + BlockSide, BlockSide*BlockSide + BlockSide + 1} {
 			if b.W[idx+off] == 0 {
 				return 0, false
@@ -112,6 +118,9 @@ type ModelMap struct {
 	Intr    mesh.Intrinsics
 	Points  []r3.Vec
 	Normals []r3.Vec
+	// per pixel, the stretch of the ray (distance from the camera) that
+	// passes through allocated blocks; scratch of Raycast
+	near, far []float32
 }
 
 // Valid reports whether pixel i holds a surface point.
@@ -125,13 +134,25 @@ func (m *ModelMap) Valid(i int) bool { return m.Normals[i] != r3.Vec{} }
 // negative linearly between the last two samples. Only a crossing from
 // front to back counts, so back faces are never returned. dst is reused
 // when its size matches.
+//
+// Before marching, every allocated block's box is projected into the
+// image and its nearest and farthest distance from the camera kept per
+// pixel, as voxel hashing does (Nießner et al. 2013): a ray starts at
+// the first block that can hold its surface and stops after the last,
+// and a ray that meets no block costs nothing.
 func (v *Volume) Raycast(ctx context.Context, intr mesh.Intrinsics, camToWorld mesh.Pose, dst *ModelMap) *ModelMap {
 	n := intr.Width * intr.Height
 	if dst == nil || len(dst.Points) != n {
 		dst = &ModelMap{Points: make([]r3.Vec, n), Normals: make([]r3.Vec, n)}
 	}
+	if len(dst.near) != n {
+		dst.near, dst.far = make([]float32, n), make([]float32, n)
+	}
 	dst.Intr = intr
 	lo, hi, ok := v.bounds()
+	if ok {
+		v.rayIntervals(intr, camToWorld, dst.near, dst.far)
+	}
 	par.For(intr.Height, v.opt.Workers, func(y int) {
 		if ctx.Err() != nil {
 			return
@@ -140,11 +161,11 @@ func (v *Volume) Raycast(ctx context.Context, intr mesh.Intrinsics, camToWorld m
 		for x := 0; x < intr.Width; x++ {
 			i := y*intr.Width + x
 			dst.Points[i], dst.Normals[i] = r3.Vec{}, r3.Vec{}
-			if !ok {
+			if !ok || !(dst.near[i] <= dst.far[i]) {
 				continue
 			}
 			ray := camToWorld.Rotate(mesh.Normalize(intr.Ray(float64(x), float64(y))))
-			if p, nrm, hit := s.castRay(camToWorld.T, ray, lo, hi); hit {
+			if p, nrm, hit := s.castRay(camToWorld.T, ray, lo, hi, float64(dst.near[i]), float64(dst.far[i])); hit {
 				dst.Points[i], dst.Normals[i] = p, nrm
 			}
 		}
@@ -152,21 +173,84 @@ func (v *Volume) Raycast(ctx context.Context, intr mesh.Intrinsics, camToWorld m
 	return dst
 }
 
+// rayIntervals sets, per pixel, the nearest and farthest distance from
+// the camera at which the pixel's ray can be inside an allocated block
+// (near > far where it meets none). Each block's box is projected: the
+// pixels inside the bounding rectangle of its eight projected corners
+// (the projection of a box in front of the camera is the convex hull of
+// its corners) take the box's distance range; a box reaching behind the
+// near plane covers the whole image. Bounds are widened by a voxel, so
+// float32 rounding never cuts a ray short.
+func (v *Volume) rayIntervals(intr mesh.Intrinsics, camToWorld mesh.Pose, near, far []float32) {
+	for i := range near {
+		near[i], far[i] = float32(math.Inf(1)), float32(math.Inf(-1))
+	}
+	worldToCam := camToWorld.Inv()
+	blockLen := v.opt.VoxelSize * BlockSide
+	ex := r3.Scale(blockLen, worldToCam.R.Col(0))
+	ey := r3.Scale(blockLen, worldToCam.R.Col(1))
+	ez := r3.Scale(blockLen, worldToCam.R.Col(2))
+	eye := camToWorld.T
+	w, h := intr.Width, intr.Height
+	minZ := math.Max(v.opt.MinDepth, 1e-6)
+	pad := v.opt.VoxelSize
+	for _, key := range v.keys {
+		lo := r3.Vec{X: float64(key.X) * blockLen, Y: float64(key.Y) * blockLen, Z: float64(key.Z) * blockLen}
+		// Nearest point of the box to the eye, farthest corner.
+		q := r3.Vec{X: clampF(eye.X, lo.X, lo.X+blockLen), Y: clampF(eye.Y, lo.Y, lo.Y+blockLen), Z: clampF(eye.Z, lo.Z, lo.Z+blockLen)}
+		tNear := float32(r3.Norm(r3.Sub(q, eye)) - pad)
+		base := worldToCam.Apply(lo)
+		u0, u1, v0, v1 := math.Inf(1), math.Inf(-1), math.Inf(1), math.Inf(-1)
+		var far2 float64
+		whole := false
+		for c := 0; c < 8; c++ {
+			p := base
+			if c&1 != 0 {
+				p = r3.Add(p, ex)
+			}
+			if c&2 != 0 {
+				p = r3.Add(p, ey)
+			}
+			if c&4 != 0 {
+				p = r3.Add(p, ez)
+			}
+			far2 = math.Max(far2, r3.Dot(p, p))
+			if p.Z < minZ {
+				whole = true
+				continue
+			}
+			u, vv := intr.Fx*p.X/p.Z+intr.Cx, intr.Fy*p.Y/p.Z+intr.Cy
+			u0, u1 = math.Min(u0, u), math.Max(u1, u)
+			v0, v1 = math.Min(v0, vv), math.Max(v1, vv)
+		}
+		tFar := float32(math.Sqrt(far2) + pad)
+		x0, x1, y0, y1 := 0, w-1, 0, h-1
+		if !whole {
+			if u1 < 0 || v1 < 0 || u0 > float64(w-1) || v0 > float64(h-1) {
+				continue
+			}
+			x0, x1 = max(x0, int(math.Floor(u0))), min(x1, int(math.Ceil(u1)))
+			y0, y1 = max(y0, int(math.Floor(v0))), min(y1, int(math.Ceil(v1)))
+		}
+		for y := y0; y <= y1; y++ {
+			row := y * w
+			for x := x0; x <= x1; x++ {
+				i := row + x
+				near[i] = min(near[i], tNear)
+				far[i] = max(far[i], tFar)
+			}
+		}
+	}
+}
+
+func clampF(x, lo, hi float64) float64 { return math.Max(lo, math.Min(hi, x)) }
+
 // bounds returns the world-space box of all allocated blocks.
 func (v *Volume) bounds() (lo, hi r3.Vec, ok bool) {
 	if len(v.blocks) == 0 {
 		return lo, hi, false
 	}
-	first := true
-	var a, b BlockKey
-	for k := range v.blocks {
-		if first {
-			a, b, first = k, k, false
-			continue
-		}
-		a = BlockKey{min(a.X, k.X), min(a.Y, k.Y), min(a.Z, k.Z)}
-		b = BlockKey{max(b.X, k.X), max(b.Y, k.Y), max(b.Z, k.Z)}
-	}
+	a, b := v.lo, v.hi
 	s := v.opt.VoxelSize * BlockSide
 	lo = r3.Vec{X: float64(a.X) * s, Y: float64(a.Y) * s, Z: float64(a.Z) * s}
 	hi = r3.Vec{X: float64(b.X+1) * s, Y: float64(b.Y+1) * s, Z: float64(b.Z+1) * s}
@@ -174,35 +258,40 @@ func (v *Volume) bounds() (lo, hi r3.Vec, ok bool) {
 }
 
 // castRay marches from origin o along unit direction d through the box
-// [lo, hi] and returns the first front-to-back zero crossing.
-func (s *sampler) castRay(o, d, lo, hi r3.Vec) (r3.Vec, r3.Vec, bool) {
+// [lo, hi], between distances near and far, and returns the first
+// front-to-back zero crossing.
+func (s *sampler) castRay(o, d, lo, hi r3.Vec, near, far float64) (r3.Vec, r3.Vec, bool) {
 	v := s.v
 	t0, t1, hit := slab(o, d, lo, hi)
 	if !hit {
 		return r3.Vec{}, r3.Vec{}, false
 	}
-	t0 = math.Max(t0, v.opt.MinDepth)
-	t1 = math.Min(t1, v.opt.MaxDepth*2)
+	t0 = math.Max(math.Max(t0, v.opt.MinDepth), near)
+	t1 = math.Min(math.Min(t1, v.opt.MaxDepth*2), far)
 	vs := v.opt.VoxelSize
 	blockLen := vs * BlockSide
 	mu := v.mu
+	inv := r3.Vec{X: invOrZero(d.X), Y: invOrZero(d.Y), Z: invOrZero(d.Z)}
+	invVs := 1 / vs
 	prevT, prevD := 0.0, float32(0)
 	havePrev := false
 	for t := t0; t <= t1; {
 		p := r3.Add(o, r3.Scale(t, d))
-		key := v.KeyOf(p)
-		if !s.valid || key != s.lastKey {
-			s.last, s.lastKey, s.valid = v.blocks[key], key, true
-		}
-		if s.last == nil {
+		gx, gy, gz := p.X*invVs, p.Y*invVs, p.Z*invVs
+		fx, fy, fz := math.Floor(gx), math.Floor(gy), math.Floor(gz)
+		i, j, k := int(fx), int(fy), int(fz)
+		b, idx := s.block(i, j, k)
+		if b == nil {
 			// Skip to where the ray leaves this empty block.
-			bl := r3.Vec{X: float64(key.X) * blockLen, Y: float64(key.Y) * blockLen, Z: float64(key.Z) * blockLen}
-			_, exit, _ := slab(o, d, bl, r3.Add(bl, r3.Vec{X: blockLen, Y: blockLen, Z: blockLen}))
+			key := s.lastKey
+			exit := min(faceExit(float64(key.X)*blockLen, blockLen, o.X, inv.X),
+				faceExit(float64(key.Y)*blockLen, blockLen, o.Y, inv.Y),
+				faceExit(float64(key.Z)*blockLen, blockLen, o.Z, inv.Z))
 			t = math.Max(exit, t) + vs*1e-3
 			havePrev = false
 			continue
 		}
-		D, ok := s.trilinear(p)
+		D, ok := s.interpolate(b, idx, i, j, k, float32(gx-fx), float32(gy-fy), float32(gz-fz))
 		if !ok {
 			t += vs
 			havePrev = false
@@ -226,6 +315,28 @@ func (s *sampler) castRay(o, d, lo, hi r3.Vec) (r3.Vec, r3.Vec, bool) {
 		t += math.Max(0.8*float64(D)*mu, vs/2)
 	}
 	return r3.Vec{}, r3.Vec{}, false
+}
+
+// invOrZero returns 1/x, or 0 for x = 0 (a ray parallel to an axis's
+// faces, which faceExit reads as never leaving through them).
+func invOrZero(x float64) float64 {
+	if x == 0 {
+		return 0
+	}
+	return 1 / x
+}
+
+// faceExit returns the ray parameter at which a ray from o with inverse
+// direction component inv leaves the slab [lo, lo + size] along one
+// axis: through the far face in the direction of travel.
+func faceExit(lo, size, o, inv float64) float64 {
+	switch {
+	case inv > 0:
+		return (lo + size - o) * inv
+	case inv < 0:
+		return (lo - o) * inv
+	}
+	return math.Inf(1)
 }
 
 // slab intersects the ray o + t·d with the box [lo, hi] and returns the

@@ -85,15 +85,51 @@ func DefaultTSDFOptions() TSDFOptions {
 // VoxelSize·(i, j, k): voxels are lattice points, which is what marching
 // cubes samples.
 //
+// Blocks are kept in allocation order behind a hash index; while the
+// box around them stays small (maxGridCells), a dense array over that
+// box indexes them too, so that raycasting and allocation find a block
+// by arithmetic instead of hashing.
+//
 // A Volume is not safe for concurrent use; Integrate parallelises
 // internally.
 type Volume struct {
 	opt    TSDFOptions
 	mu     float64 // truncation, metres
-	blocks map[BlockKey]*Block
+	index  map[BlockKey]int32
+	keys   []BlockKey // allocation order; blocks[i] is at keys[i]
+	blocks []*Block
+	slab   []Block  // blocks are carved from slabs to spare the allocator
+	lo, hi BlockKey // box around the allocated blocks
+	grid   blockGrid
 	// scratch reused between frames
-	touched map[BlockKey]struct{}
-	keys    []BlockKey
+	fresh   map[BlockKey]struct{}
+	pending []BlockKey
+	visible []int32
+	counts  []int
+}
+
+// slabBlocks is how many blocks are allocated at once.
+const slabBlocks = 32
+
+// maxGridCells bounds the dense block index (4 bytes a cell): 2²³ cells
+// is 32 MiB, a box of 200³ blocks, 3.2 m across at 2 mm voxels.
+const maxGridCells = 1 << 23
+
+// blockGrid indexes the blocks of a box of block keys densely: cell
+// (x, y, z) holds 1 + the block's position in Volume.blocks, 0 for none.
+type blockGrid struct {
+	ok         bool
+	lo         BlockKey
+	nx, ny, nz int32
+	cells      []int32
+}
+
+func (g *blockGrid) cell(k BlockKey) (int, bool) {
+	x, y, z := k.X-g.lo.X, k.Y-g.lo.Y, k.Z-g.lo.Z
+	if uint32(x) >= uint32(g.nx) || uint32(y) >= uint32(g.ny) || uint32(z) >= uint32(g.nz) {
+		return 0, false
+	}
+	return int(x) + int(g.nx)*(int(y)+int(g.ny)*int(z)), true
 }
 
 // NewVolume returns an empty volume.
@@ -117,10 +153,10 @@ func NewVolume(opt TSDFOptions) (*Volume, error) {
 		opt.AllocStride = 1
 	}
 	return &Volume{
-		opt:     opt,
-		mu:      opt.Truncation,
-		blocks:  make(map[BlockKey]*Block),
-		touched: make(map[BlockKey]struct{}),
+		opt:   opt,
+		mu:    opt.Truncation,
+		index: make(map[BlockKey]int32),
+		fresh: make(map[BlockKey]struct{}),
 	}, nil
 }
 
@@ -131,14 +167,30 @@ func (v *Volume) Options() TSDFOptions { return v.opt }
 func (v *Volume) NumBlocks() int { return len(v.blocks) }
 
 // Block returns the block at key, or nil.
-func (v *Volume) Block(key BlockKey) *Block { return v.blocks[key] }
+func (v *Volume) Block(key BlockKey) *Block { return v.lookup(key) }
+
+// lookup returns the block at key, or nil: through the dense grid when
+// there is one, else the hash index.
+func (v *Volume) lookup(key BlockKey) *Block {
+	if v.grid.ok {
+		c, in := v.grid.cell(key)
+		if !in {
+			return nil
+		}
+		if i := v.grid.cells[c]; i != 0 {
+			return v.blocks[i-1]
+		}
+		return nil
+	}
+	if i, ok := v.index[key]; ok {
+		return v.blocks[i]
+	}
+	return nil
+}
 
 // Keys returns the allocated block keys in a fixed (sorted) order.
 func (v *Volume) Keys() []BlockKey {
-	keys := make([]BlockKey, 0, len(v.blocks))
-	for k := range v.blocks {
-		keys = append(keys, k)
-	}
+	keys := slices.Clone(v.keys)
 	slices.SortFunc(keys, compareKeys)
 	return keys
 }
@@ -151,6 +203,78 @@ func compareKeys(a, b BlockKey) int {
 		return int(a.Y) - int(b.Y)
 	}
 	return int(a.X) - int(b.X)
+}
+
+// addBlocks allocates zeroed blocks at keys (none allocated yet) and
+// keeps the grid in step.
+func (v *Volume) addBlocks(keys []BlockKey) error {
+	if len(v.blocks)+len(keys) > maxBlocks {
+		blockLen := v.opt.VoxelSize * BlockSide
+		return fmt.Errorf("reconstruct: the volume passed %d blocks of %.1f mm; the scene is far larger than a part (check the depth unit and the region of interest)", maxBlocks, blockLen*1000)
+	}
+	outside := false
+	for _, k := range keys {
+		if len(v.slab) == 0 {
+			v.slab = make([]Block, slabBlocks)
+		}
+		b := &v.slab[0]
+		v.slab = v.slab[1:]
+		if len(v.blocks) == 0 {
+			v.lo, v.hi = k, k
+		} else {
+			v.lo = BlockKey{min(v.lo.X, k.X), min(v.lo.Y, k.Y), min(v.lo.Z, k.Z)}
+			v.hi = BlockKey{max(v.hi.X, k.X), max(v.hi.Y, k.Y), max(v.hi.Z, k.Z)}
+		}
+		v.index[k] = int32(len(v.blocks))
+		v.keys = append(v.keys, k)
+		v.blocks = append(v.blocks, b)
+		if c, in := v.grid.cell(k); in && v.grid.ok {
+			v.grid.cells[c] = int32(len(v.blocks))
+		} else {
+			outside = true
+		}
+	}
+	if outside {
+		v.rebuildGrid()
+	}
+	return nil
+}
+
+// rebuildGrid lays the dense index over the blocks' box widened by a
+// margin (so that a growing volume rebuilds it rarely), or drops it when
+// that box would pass maxGridCells.
+func (v *Volume) rebuildGrid() {
+	g := &v.grid
+	g.ok = false
+	if len(v.blocks) == 0 {
+		return
+	}
+	margin := func(lo, hi int32) (int32, int32) {
+		m := max(2, (hi-lo+1)/4)
+		return lo - m, hi + m
+	}
+	x0, x1 := margin(v.lo.X, v.hi.X)
+	y0, y1 := margin(v.lo.Y, v.hi.Y)
+	z0, z1 := margin(v.lo.Z, v.hi.Z)
+	nx, ny, nz := int64(x1-x0+1), int64(y1-y0+1), int64(z1-z0+1)
+	if nx*ny*nz > maxGridCells {
+		g.cells = nil
+		return
+	}
+	n := int(nx * ny * nz)
+	if cap(g.cells) >= n {
+		g.cells = g.cells[:n]
+		clear(g.cells)
+	} else {
+		g.cells = make([]int32, n)
+	}
+	g.lo = BlockKey{x0, y0, z0}
+	g.nx, g.ny, g.nz = int32(nx), int32(ny), int32(nz)
+	for i, k := range v.keys {
+		c, _ := g.cell(k)
+		g.cells[c] = int32(i + 1)
+	}
+	g.ok = true
 }
 
 // DepthImage is one depth measurement with optional colour, as
@@ -229,16 +353,22 @@ func (v *Volume) Integrate(ctx context.Context, im *DepthImage, camToWorld mesh.
 	}
 	st.NewBlocks = n
 	worldToCam := camToWorld.Inv()
-	v.keys = v.frustumBlocks(v.keys[:0], im.Intr, worldToCam)
-	st.UpdatedBlocks = len(v.keys)
+	v.visible = v.frustumBlocks(v.visible[:0], im.Intr, worldToCam)
+	st.UpdatedBlocks = len(v.visible)
 	const chunk = 8
-	counts := make([]int, (len(v.keys)+chunk-1)/chunk)
-	par.For(len(counts), v.opt.Workers, func(c int) {
+	nc := (len(v.visible) + chunk - 1) / chunk
+	if cap(v.counts) < nc {
+		v.counts = make([]int, nc)
+	}
+	counts := v.counts[:nc]
+	clear(counts)
+	pr := v.newProjector(im, worldToCam)
+	par.For(nc, v.opt.Workers, func(c int) {
 		if ctx.Err() != nil {
 			return
 		}
-		for _, k := range v.keys[c*chunk : min((c+1)*chunk, len(v.keys))] {
-			counts[c] += v.integrateBlock(k, v.blocks[k], im, worldToCam)
+		for _, i := range v.visible[c*chunk : min((c+1)*chunk, len(v.visible))] {
+			counts[c] += pr.integrateBlock(v.keys[i], v.blocks[i])
 		}
 	})
 	if err := ctx.Err(); err != nil {
@@ -257,9 +387,10 @@ func (v *Volume) KeyOf(p r3.Vec) BlockKey {
 }
 
 // allocate creates the blocks that the truncation bands of im.Alloc's
-// pixels pass through and returns how many it created.
+// pixels pass through and returns how many it created. New blocks are
+// allocated in key order, so the volume's layout does not depend on
+// map iteration.
 func (v *Volume) allocate(im *DepthImage, camToWorld mesh.Pose) (int, error) {
-	clear(v.touched)
 	k := im.Intr
 	stride := v.opt.AllocStride
 	blockLen := v.opt.VoxelSize * BlockSide
@@ -267,53 +398,61 @@ func (v *Volume) allocate(im *DepthImage, camToWorld mesh.Pose) (int, error) {
 	// block crosses at most three block planes, and a quarter-block step
 	// visits every block it passes through by more than a quarter block.
 	steps := int(math.Ceil(2*v.mu/(blockLen/4))) + 1
+	minD, maxD := v.opt.MinDepth, v.opt.MaxDepth
+	rot, org := camToWorld.R, camToWorld.T
+	clear(v.fresh)
+	v.pending = v.pending[:0]
 	for y := 0; y < k.Height; y += stride {
+		ry := (float64(y) - k.Cy) / k.Fy
 		for x := 0; x < k.Width; x += stride {
 			i := y*k.Width + x
 			if im.Alloc != nil && !im.Alloc[i] {
 				continue
 			}
 			d := float64(im.Depth[i])
-			if !(d >= v.opt.MinDepth && d <= v.opt.MaxDepth) {
+			if !(d >= minD && d <= maxD) {
 				continue
 			}
 			if im.Weight != nil && !(im.Weight[i] > 0) {
 				continue
 			}
-			ray := k.Ray(float64(x), float64(y))
-			scale := v.mu / r3.Norm(ray) // the band is ±μ along the ray
+			ray := r3.Vec{X: (float64(x) - k.Cx) / k.Fx, Y: ry, Z: 1}
+			scale := v.mu / math.Sqrt(ray.X*ray.X+ray.Y*ray.Y+1) // the band is ±μ along the ray
+			wr := rot.MulVec(ray)
 			last := BlockKey{math.MaxInt32, 0, 0}
 			for s := 0; s < steps; s++ {
 				t := d - scale + 2*scale*float64(s)/float64(steps-1)
-				key := v.KeyOf(camToWorld.Apply(r3.Scale(t, ray)))
+				key := v.KeyOf(r3.Add(org, r3.Scale(t, wr)))
 				if key == last {
 					continue
 				}
 				last = key
-				v.touched[key] = struct{}{}
+				if v.lookup(key) != nil {
+					continue
+				}
+				if _, ok := v.fresh[key]; !ok {
+					v.fresh[key] = struct{}{}
+					v.pending = append(v.pending, key)
+				}
 			}
 		}
 	}
-	created := 0
-	for key := range v.touched {
-		if _, ok := v.blocks[key]; ok {
-			continue
-		}
-		if len(v.blocks) >= maxBlocks {
-			return created, fmt.Errorf("reconstruct: the volume passed %d blocks of %.1f mm; the scene is far larger than a part (check the depth unit and the region of interest)", maxBlocks, blockLen*1000)
-		}
-		v.blocks[key] = new(Block)
-		created++
+	if len(v.pending) == 0 {
+		return 0, nil
 	}
-	return created, nil
+	slices.SortFunc(v.pending, compareKeys)
+	if err := v.addBlocks(v.pending); err != nil {
+		return 0, err
+	}
+	return len(v.pending), nil
 }
 
-// frustumBlocks appends, in sorted order, the keys of allocated blocks
-// whose bounding sphere meets the view frustum within the depth range.
-func (v *Volume) frustumBlocks(dst []BlockKey, k mesh.Intrinsics, worldToCam mesh.Pose) []BlockKey {
+// frustumBlocks appends the positions of allocated blocks whose bounding
+// sphere meets the view frustum within the depth range.
+func (v *Volume) frustumBlocks(dst []int32, k mesh.Intrinsics, worldToCam mesh.Pose) []int32 {
 	blockLen := v.opt.VoxelSize * BlockSide
 	radius := blockLen * math.Sqrt(3) / 2
-	for key := range v.blocks {
+	for i, key := range v.keys {
 		c := r3.Vec{X: (float64(key.X) + 0.5) * blockLen, Y: (float64(key.Y) + 0.5) * blockLen, Z: (float64(key.Z) + 0.5) * blockLen}
 		p := worldToCam.Apply(c)
 		if p.Z+radius < v.opt.MinDepth || p.Z-radius > v.opt.MaxDepth+v.mu {
@@ -325,27 +464,49 @@ func (v *Volume) frustumBlocks(dst []BlockKey, k mesh.Intrinsics, worldToCam mes
 		if u < -mu || u > float64(k.Width)+mu || vv < -mv || vv > float64(k.Height)+mv {
 			continue
 		}
-		dst = append(dst, key)
+		dst = append(dst, int32(i))
 	}
-	slices.SortFunc(dst, compareKeys)
 	return dst
+}
+
+// projector holds what integrateBlock needs of one frame, unpacked into
+// scalars for the voxel loop.
+type projector struct {
+	im                     *DepthImage
+	worldToCam             mesh.Pose
+	ex, ey, ez             r3.Vec // one voxel step along x, y, z, camera frame
+	vs, mu                 float64
+	invMu, maxW            float32
+	minD, maxD             float64
+	fx, fy, cx, cy, fw, fh float64
+	w                      int
+}
+
+func (v *Volume) newProjector(im *DepthImage, worldToCam mesh.Pose) *projector {
+	k := im.Intr
+	vs := v.opt.VoxelSize
+	return &projector{
+		im: im, worldToCam: worldToCam,
+		ex: r3.Scale(vs, worldToCam.R.Col(0)), ey: r3.Scale(vs, worldToCam.R.Col(1)), ez: r3.Scale(vs, worldToCam.R.Col(2)),
+		vs: vs, mu: v.mu, invMu: float32(1 / v.mu), maxW: v.opt.MaxWeight,
+		minD: v.opt.MinDepth, maxD: v.opt.MaxDepth,
+		fx: k.Fx, fy: k.Fy, cx: k.Cx, cy: k.Cy, fw: float64(k.Width), fh: float64(k.Height),
+		w: k.Width,
+	}
 }
 
 // integrateBlock updates one block's voxels and returns how many it
 // updated.
-func (v *Volume) integrateBlock(key BlockKey, b *Block, im *DepthImage, worldToCam mesh.Pose) int {
-	k := im.Intr
-	vs := v.opt.VoxelSize
-	mu := v.mu
-	invMu := float32(1 / mu)
-	maxW := v.opt.MaxWeight
-	minD, maxD := v.opt.MinDepth, v.opt.MaxDepth
+func (pr *projector) integrateBlock(key BlockKey, b *Block) int {
+	im := pr.im
+	vs := pr.vs
 	origin := r3.Vec{X: float64(key.X) * BlockSide * vs, Y: float64(key.Y) * BlockSide * vs, Z: float64(key.Z) * BlockSide * vs}
-	base := worldToCam.Apply(origin)
-	ex := r3.Scale(vs, worldToCam.R.Col(0))
-	ey := r3.Scale(vs, worldToCam.R.Col(1))
-	ez := r3.Scale(vs, worldToCam.R.Col(2))
-	w, h := k.Width, k.Height
+	base := pr.worldToCam.Apply(origin)
+	ex, ey, ez := pr.ex, pr.ey, pr.ez
+	fx, fy, cx, cy, fw, fh := pr.fx, pr.fy, pr.cx, pr.cy, pr.fw, pr.fh
+	minD, maxD, mu, invMu, maxW := pr.minD, pr.maxD, pr.mu, pr.invMu, pr.maxW
+	w := pr.w
+	depth, weight, behind, color := im.Depth, im.Weight, im.Behind, im.Color
 	updates := 0
 	idx := 0
 	for kz := 0; kz < BlockSide; kz++ {
@@ -358,15 +519,24 @@ func (v *Volume) integrateBlock(key BlockKey, b *Block, im *DepthImage, worldToC
 				}
 				inv := 1 / p.Z
 				xn, yn := p.X*inv, p.Y*inv
-				u := int(math.Floor(k.Fx*xn + k.Cx + 0.5))
-				vv := int(math.Floor(k.Fy*yn + k.Cy + 0.5))
-				if u < 0 || vv < 0 || u >= w || vv >= h {
+				// Nearest pixel: floor(f·x/z + c + 0.5), tested before the
+				// conversion so that the truncation is a floor.
+				fu := fx*xn + cx + 0.5
+				fv := fy*yn + cy + 0.5
+				if !(fu >= 0 && fv >= 0 && fu < fw && fv < fh) {
 					continue
 				}
-				pix := vv*w + u
-				d := float64(im.Depth[pix])
+				pix := int(fv)*w + int(fu)
+				d := float64(depth[pix])
 				if !(d >= minD && d <= maxD) {
 					continue
+				}
+				wt := float32(1)
+				if weight != nil {
+					wt = weight[pix]
+					if !(wt > 0) {
+						continue
+					}
 				}
 				// Signed distance along the line of sight: the depth
 				// difference times the ray's length per unit depth.
@@ -374,22 +544,15 @@ func (v *Volume) integrateBlock(key BlockKey, b *Block, im *DepthImage, worldToC
 				if sdf < -mu {
 					continue
 				}
-				if im.Behind != nil && sdf < -float64(im.Behind[pix]) {
+				if behind != nil && sdf < -float64(behind[pix]) {
 					continue
-				}
-				wt := float32(1)
-				if im.Weight != nil {
-					wt = im.Weight[pix]
-					if !(wt > 0) {
-						continue
-					}
 				}
 				tsdf := min(float32(sdf)*invMu, 1)
 				W := b.W[idx]
 				nw := W + wt
 				b.D[idx] = (W*b.D[idx] + wt*tsdf) / nw
-				if im.Color != nil {
-					c := im.Color[3*pix : 3*pix+3]
+				if color != nil {
+					c := color[3*pix : 3*pix+3]
 					cc := &b.C[idx]
 					cc[0] = (W*cc[0] + wt*float32(c[0])) / nw
 					cc[1] = (W*cc[1] + wt*float32(c[1])) / nw
