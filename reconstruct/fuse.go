@@ -327,20 +327,7 @@ func (f *fuser) setROI(plane Plane, centre r3.Vec, radius float64) {
 // masks returns, for a frame placed at camToWorld, the pixels whose
 // world point lies in the region of interest.
 func (f *fuser) mask(fr *Frame, camToWorld mesh.Pose, dst []bool) []bool {
-	n := len(fr.Depth)
-	if len(dst) != n {
-		dst = make([]bool, n)
-	}
-	w := fr.Intr.Width
-	for i, z := range fr.Depth {
-		dst[i] = false
-		if z <= 0 {
-			continue
-		}
-		p := camToWorld.Apply(fr.Intr.BackProject(float64(i%w), float64(i/w), float64(z)))
-		dst[i] = f.roi.Contains(p)
-	}
-	return dst
+	return f.roi.Mask(fr.Depth, fr.Intr, camToWorld, dst)
 }
 
 // prefetch decodes the frames in order, up to opt.Prefetch ahead, on
