@@ -247,7 +247,38 @@ func (s *PlaneSystem) Step(damping float64) (step Pose, angle, shift float64, ok
 			k += 6 - u
 		}
 	}
-	x, ok := solve6(a, s.b)
+	return s.solve(a, s.b)
+}
+
+// StepToward is Step with the damping pulling toward a prior pose
+// instead of toward no motion, scaled per parameter like Marquardt's
+// (1963): it minimises the point-to-plane residuals plus
+// Σᵤ rel·Aᵤᵤ·(ξᵤ + δᵤ)², where A is the normal matrix, δ the current
+// pose's offset from the prior (offset = current·prior⁻¹ as a small
+// motion, the same left increment the step is) and ξ the step. Scaling
+// by Aᵤᵤ makes rel free of units and lever arms: the directions the
+// pairs constrain move by a fraction rel less than they would, and those
+// they leave loose (a camera sliding over a large table while the part
+// is small) stay near the prior, a motion model's prediction, instead of
+// drifting with the noise.
+func (s *PlaneSystem) StepToward(rel float64, offset Pose) (step Pose, angle, shift float64, ok bool) {
+	a, b := s.a, s.b
+	if rel > 0 {
+		axis, ang := offset.AxisAngle()
+		d := [6]float64{axis.X * ang, axis.Y * ang, axis.Z * ang, offset.T.X, offset.T.Y, offset.T.Z}
+		k := 0
+		for u := 0; u < 6; u++ {
+			l := rel * s.a[k]
+			a[k] += l
+			b[u] += l * d[u]
+			k += 6 - u
+		}
+	}
+	return s.solve(a, b)
+}
+
+func (s *PlaneSystem) solve(a [21]float64, b [6]float64) (step Pose, angle, shift float64, ok bool) {
+	x, ok := solve6(a, b)
 	if !ok {
 		return Identity(), 0, 0, false
 	}

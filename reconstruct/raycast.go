@@ -293,8 +293,14 @@ func (s *sampler) castRay(o, d, lo, hi r3.Vec, near, far float64) (r3.Vec, r3.Ve
 		}
 		D, ok := s.interpolate(b, idx, i, j, k, float32(gx-fx), float32(gy-fy), float32(gz-fz))
 		if !ok {
-			t += vs
-			havePrev = false
+			// An unobserved corner (a dropout, an edge the weights left
+			// out): step over it, but keep the last free-space sample for
+			// up to two voxels so that a crossing just behind the gap is
+			// still found.
+			t += vs / 2
+			if havePrev && t-prevT > 2*vs {
+				havePrev = false
+			}
 			continue
 		}
 		if D < 0 {

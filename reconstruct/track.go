@@ -43,10 +43,12 @@ type TrackOptions struct {
 	// the prediction is lost (a jump no hand makes in one frame).
 	// DEFAULT: 0.08 m, 20° (0.349 rad)
 	MaxShift, MaxTurn float64
-	// Damping regularises each step (PlaneSystem.Step), in units of the
-	// normal matrix; it keeps directions that the scene does not constrain
-	// from drifting.
-	// DEFAULT: 1e-6
+	// Damping pulls each step toward the predicted pose, relative to the
+	// normal matrix's diagonal (PlaneSystem.StepToward): the directions
+	// the scene constrains give up about this fraction of their motion,
+	// the ones it leaves loose (a camera sliding over a large table) stay
+	// near the motion model's prediction instead of drifting with noise.
+	// DEFAULT: 0.001
 	Damping float64
 	// Workers bounds the goroutines; 0 means all cores.
 	// DEFAULT: 0
@@ -64,7 +66,7 @@ func DefaultTrackOptions() TrackOptions {
 		MaxRMS:         0.006,
 		MaxShift:       0.08,
 		MaxTurn:        20 * math.Pi / 180,
-		Damping:        1e-6,
+		Damping:        1e-3,
 	}
 }
 
@@ -86,6 +88,73 @@ type level struct {
 	vert  []r3.Vec
 	norm  []r3.Vec
 	valid int
+	// bin is each pixel's normal-direction bin and binWeight the weight
+	// of a pair in that bin (normal-space equalisation, below).
+	bin       []uint8
+	binWeight [normalBins]float64
+}
+
+// normalBins is the number of normal-direction bins: the six faces of a
+// cube, each split 4×4.
+const normalBins = 96
+
+// normalBin returns the cube-map bin of unit vector n.
+func normalBin(n r3.Vec) uint8 {
+	ax, ay, az := math.Abs(n.X), math.Abs(n.Y), math.Abs(n.Z)
+	var face int
+	var u, v, m float64
+	switch {
+	case ax >= ay && ax >= az:
+		face, u, v, m = 0, n.Y, n.Z, ax
+		if n.X < 0 {
+			face = 1
+		}
+	case ay >= az:
+		face, u, v, m = 2, n.X, n.Z, ay
+		if n.Y < 0 {
+			face = 3
+		}
+	default:
+		face, u, v, m = 4, n.X, n.Y, az
+		if n.Z < 0 {
+			face = 5
+		}
+	}
+	iu := min(3, int((u/m+1)*2))
+	iv := min(3, int((v/m+1)*2))
+	return uint8(face*16 + iu*4 + iv)
+}
+
+// equaliseNormals weights pixels so that every normal direction present
+// counts alike, as normal-space sampling does (Rusinkiewicz & Levoy
+// 2001, "Efficient variants of the ICP algorithm", 3DIM, DOI
+// 10.1109/IM.2001.924423): a table top that fills most of the view
+// constrains only three degrees of freedom, and left at full weight it
+// drowns the few pixels of the part and clutter that fix the other
+// three, which then converge slowly and drift with the noise. A bin's
+// weight is the mean count per occupied bin over its own count, capped at
+// 10.
+func (lv *level) equaliseNormals() {
+	var count [normalBins]int
+	occupied := 0
+	for i, n := range lv.norm {
+		if n == (r3.Vec{}) {
+			continue
+		}
+		b := normalBin(n)
+		lv.bin[i] = b
+		if count[b] == 0 {
+			occupied++
+		}
+		count[b]++
+	}
+	mean := float64(lv.valid) / math.Max(1, float64(occupied))
+	for b, c := range count {
+		lv.binWeight[b] = 0
+		if c > 0 {
+			lv.binWeight[b] = math.Min(10, mean/float64(c))
+		}
+	}
 }
 
 // Tracker places depth frames against a TSDF volume by point-to-plane
@@ -104,6 +173,7 @@ type Tracker struct {
 	modelPose mesh.Pose
 	hasModel  bool
 	parts     []mesh.PlaneSystem
+	cands     []int
 }
 
 // NewTracker returns a tracker over vol for frames of intrinsics intr.
@@ -118,7 +188,7 @@ func NewTracker(vol *Volume, intr mesh.Intrinsics, opt TrackOptions) (*Tracker, 
 	for l := 0; l < pyramidLevels; l++ {
 		li := intr.Scaled(1 << l)
 		n := li.Width * li.Height
-		t.levels[l] = level{intr: li, depth: make([]float32, n), vert: make([]r3.Vec, n), norm: make([]r3.Vec, n)}
+		t.levels[l] = level{intr: li, depth: make([]float32, n), vert: make([]r3.Vec, n), norm: make([]r3.Vec, n), bin: make([]uint8, n)}
 	}
 	return t, nil
 }
@@ -164,12 +234,12 @@ func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predi
 			if err := ctx.Err(); err != nil {
 				return res, err
 			}
-			sys := t.associate(lv, pose, worldToModel, t.opt.MaxDistance[l], cosMax, step)
+			sys, _ := t.associate(lv, pose, worldToModel, t.opt.MaxDistance[l], cosMax, step)
 			if sys.Pairs < 30 {
 				res.Lost, res.Reason = true, fmt.Sprintf("only %d pixel pairs at pyramid level %d", sys.Pairs, l)
 				return res, nil
 			}
-			st, angle, shift, ok := sys.Step(t.opt.Damping * sys.W)
+			st, angle, shift, ok := sys.StepToward(t.opt.Damping, pose.Mul(predicted.Inv()))
 			if !ok {
 				res.Lost, res.Reason = true, "the scene does not constrain the camera (degenerate point-to-plane system)"
 				return res, nil
@@ -180,11 +250,14 @@ func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predi
 			}
 		}
 	}
-	sys := t.associate(&t.levels[0], pose, worldToModel, t.opt.MaxDistance[0], cosMax, 2)
+	sys, cands := t.associate(&t.levels[0], pose, worldToModel, t.opt.MaxDistance[0], cosMax, 2)
 	res.CamToWorld = pose
 	res.Pairs = sys.Pairs
 	res.RMS = sys.RMS()
-	res.InlierRatio = float64(sys.Pairs) / math.Max(1, float64(t.levels[0].valid)/4)
+	// The share of the pixels that land on the model which pair with it
+	// (pixels beyond the model, such as a far wall the volume does not
+	// hold, say nothing either way).
+	res.InlierRatio = float64(sys.Pairs) / math.Max(1, float64(cands))
 	moved := predicted.Inv().Mul(pose)
 	_, turn := moved.AxisAngle()
 	switch {
@@ -202,8 +275,10 @@ func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predi
 }
 
 // associate pairs the pixels of lv (every step-th in both directions)
-// moved by camToWorld with the model map and returns the summed system.
-func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD, cosMax float64, step int) mesh.PlaneSystem {
+// moved by camToWorld with the model map and returns the summed system
+// and the number of candidates (pixels that landed on a model pixel,
+// before the distance and angle tests).
+func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD, cosMax float64, step int) (mesh.PlaneSystem, int) {
 	rows := (lv.intr.Height + step - 1) / step
 	const rowsPerPart = 8
 	nParts := (rows + rowsPerPart - 1) / rowsPerPart
@@ -211,11 +286,17 @@ func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD,
 		t.parts = make([]mesh.PlaneSystem, nParts)
 	}
 	parts := t.parts[:nParts]
+	if cap(t.cands) < nParts {
+		t.cands = make([]int, nParts)
+	}
+	cands := t.cands[:nParts]
 	mi := t.model.Intr
 	maxD2 := maxD * maxD
+	refSigma2 := axialSigma(0.5, 0) * axialSigma(0.5, 0)
 	par.For(nParts, t.opt.Workers, func(k int) {
 		sys := &parts[k]
 		*sys = mesh.PlaneSystem{}
+		cands[k] = 0
 		for r := k * rowsPerPart; r < min((k+1)*rowsPerPart, rows); r++ {
 			y := r * step
 			for x := 0; x < lv.intr.Width; x += step {
@@ -239,19 +320,25 @@ func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD,
 				if nq == (r3.Vec{}) {
 					continue
 				}
+				cands[k]++
 				q := t.model.Points[j]
 				if r3.Norm2(r3.Sub(p, q)) > maxD2 || r3.Dot(camToWorld.Rotate(n), nq) < cosMax {
 					continue
 				}
-				sys.Add(p, q, nq, 1)
+				// Weight by the inverse variance of the pixel's axial noise
+				// (Nguyen et al. 2012): far pixels are several times noisier.
+				sg := axialSigma(lv.vert[i].Z, 0)
+				sys.Add(p, q, nq, lv.binWeight[lv.bin[i]]*refSigma2/(sg*sg))
 			}
 		}
 	})
 	var sum mesh.PlaneSystem
+	n := 0
 	for k := range parts {
 		sum.Merge(&parts[k])
+		n += cands[k]
 	}
-	return sum
+	return sum, n
 }
 
 // buildPyramid fills the levels from a full-resolution depth image:
@@ -302,7 +389,10 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 	}
 	for l := range t.levels {
 		lv := &t.levels[l]
-		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, 1)
+		// Normals from differences spanning about 3 mm at part
+		// distances: adjacent pixels of the full image are too noisy.
+		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, max(1, 3>>l))
+		lv.equaliseNormals()
 	}
 }
 

@@ -34,6 +34,10 @@ type WeightOptions struct {
 	// discontinuity and mix foreground and background.
 	// DEFAULT: 0.02
 	EdgeJump float64
+	// NormalSpan is how many pixels either side the normal's differences
+	// reach (falling back to adjacent pixels near edges).
+	// DEFAULT: 3
+	NormalSpan int
 	// BehindSigmas and BehindMin set the band behind each measured
 	// surface in which voxels are updated (MeasurementBands): measured
 	// perpendicular to the surface, it is the larger of BehindSigmas·σ_z
@@ -55,7 +59,7 @@ type WeightOptions struct {
 
 // DefaultWeightOptions returns the documented defaults.
 func DefaultWeightOptions() WeightOptions {
-	return WeightOptions{MaxAngle: 75 * math.Pi / 180, EdgeJump: 0.02, BehindSigmas: 1.5}
+	return WeightOptions{MaxAngle: 75 * math.Pi / 180, EdgeJump: 0.02, NormalSpan: 3, BehindSigmas: 1.5}
 }
 
 // MeasurementWeights returns, for each pixel of a depth image, the
@@ -141,11 +145,28 @@ func (pw *pixelWeigher) row(depth []float32, y int, dst, behind []float32) {
 			math.Abs(l-z) > jump || math.Abs(r-z) > jump || math.Abs(u-z) > jump || math.Abs(d-z) > jump {
 			continue
 		}
+		// The normal from differences k pixels either side: at part
+		// distances a pixel spans about a millimetre, the depth noise as
+		// much, so adjacent differences give normals too noisy to judge
+		// the viewing angle by (many face-on pixels would look grazing).
+		// Near edges it falls back to the adjacent pixels.
+		k := opt.NormalSpan
+		sx, sy := dx, dy
+		if k > 1 && x >= k && y >= k && x < w-k && y < h-k {
+			l2, r2 := float64(mid[x-k]), float64(mid[x+k])
+			u2, d2 := float64(depth[(y-k)*w+x]), float64(depth[(y+k)*w+x])
+			far := jump * float64(k)
+			if l2 > 0 && r2 > 0 && u2 > 0 && d2 > 0 &&
+				math.Abs(l2-z) <= far && math.Abs(r2-z) <= far && math.Abs(u2-z) <= far && math.Abs(d2-z) <= far {
+				l, r, u, d = l2, r2, u2, d2
+				sx, sy = float64(k)*dx, float64(k)*dy
+			}
+		}
 		// Central differences of the back-projected neighbours
 		// (X, Y, Z) = (ray_x·z, ray_y·z, z), and their cross product.
 		rx := (float64(x) - intr.Cx) / intr.Fx
-		pxX, pxY, pxZ := (rx+dx)*r-(rx-dx)*l, ry*(r-l), r-l
-		pyX, pyY, pyZ := rx*(d-u), (ry+dy)*d-(ry-dy)*u, d-u
+		pxX, pxY, pxZ := (rx+sx)*r-(rx-sx)*l, ry*(r-l), r-l
+		pyX, pyY, pyZ := rx*(d-u), (ry+sy)*d-(ry-sy)*u, d-u
 		nx := pxY*pyZ - pxZ*pyY
 		ny := pxZ*pyX - pxX*pyZ
 		nz := pxX*pyY - pxY*pyX
