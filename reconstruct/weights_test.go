@@ -46,8 +46,21 @@ func referenceBands(depth []float32, intr mesh.Intrinsics, opt WeightOptions) (w
 				math.Abs(l-z) > jump || math.Abs(r-z) > jump || math.Abs(u-z) > jump || math.Abs(d-z) > jump {
 				continue
 			}
-			px := r3.Sub(intr.BackProject(float64(x+1), float64(y), r), intr.BackProject(float64(x-1), float64(y), l))
-			py := r3.Sub(intr.BackProject(float64(x), float64(y+1), d), intr.BackProject(float64(x), float64(y-1), u))
+			// Differences NormalSpan pixels either side where they stay on
+			// the surface, adjacent ones otherwise.
+			k := opt.NormalSpan
+			xl, xr, yu, yd := x-1, x+1, y-1, y+1
+			if k > 1 && x >= k && y >= k && x < w-k && y < h-k {
+				l2, r2, u2, d2 := at(x-k, y), at(x+k, y), at(x, y-k), at(x, y+k)
+				far := jump * float64(k)
+				if l2 > 0 && r2 > 0 && u2 > 0 && d2 > 0 &&
+					math.Abs(l2-z) <= far && math.Abs(r2-z) <= far && math.Abs(u2-z) <= far && math.Abs(d2-z) <= far {
+					l, r, u, d = l2, r2, u2, d2
+					xl, xr, yu, yd = x-k, x+k, y-k, y+k
+				}
+			}
+			px := r3.Sub(intr.BackProject(float64(xr), float64(y), r), intr.BackProject(float64(xl), float64(y), l))
+			py := r3.Sub(intr.BackProject(float64(x), float64(yd), d), intr.BackProject(float64(x), float64(yu), u))
 			n := mesh.Normalize(r3.Cross(px, py))
 			ray := mesh.Normalize(intr.Ray(float64(x), float64(y)))
 			c := math.Abs(r3.Dot(n, ray))
