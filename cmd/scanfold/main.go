@@ -65,6 +65,7 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 		Commands: []*cli.Command{
 			versionCommand(),
 			synthCommand(),
+			fuseCommand(),
 			sampleCommand(),
 			tablesCommand(),
 			demoCommand(),
