@@ -482,6 +482,12 @@ func (f *fuser) turntablePass(ctx context.Context, point, up r3.Vec, rel func(in
 			}
 			continue
 		}
+		if reason := f.lacksDepth(fr); reason != "" {
+			if err := f.skip(idx, reason); err != nil {
+				return err
+			}
+			continue
+		}
 		pose := TurntablePose(point, up, a)
 		f.alloc = f.mask(fr, pose, f.alloc)
 		if tr != nil && f.rep.FramesUsed > 0 {
@@ -595,6 +601,23 @@ func (f *fuser) plateCloud(fr *Frame) *mesh.Cloud {
 	return c
 }
 
+// lacksDepth says why a frame cannot be fused when fewer than 1% of its
+// pixels have a depth inside the volume's range (a covered lens, a
+// saturated projector, a frame of the wrong scene), or "".
+func (f *fuser) lacksDepth(fr *Frame) string {
+	lo, hi := float32(f.opt.TSDF.MinDepth), float32(f.opt.TSDF.MaxDepth)
+	n := 0
+	for _, z := range fr.Depth {
+		if z >= lo && z <= hi {
+			n++
+		}
+	}
+	if n*100 >= len(fr.Depth) {
+		return ""
+	}
+	return fmt.Sprintf("only %d of %d pixels have a depth between %.2f and %.2f m", n, len(fr.Depth), lo, hi)
+}
+
 // nearEdges marks the pixels within k pixels (Chebyshev distance) of a
 // foreground edge: a valid pixel with a 4-neighbour that is missing or
 // farther by more than jump metres.
@@ -672,6 +695,12 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 				return ctx.Err()
 			}
 			if err := f.skip(idx, err.Error()); err != nil {
+				return err
+			}
+			continue
+		}
+		if reason := f.lacksDepth(fr); reason != "" {
+			if err := f.skip(idx, reason); err != nil {
 				return err
 			}
 			continue

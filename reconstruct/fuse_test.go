@@ -1,6 +1,7 @@
 package reconstruct
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"math"
@@ -8,6 +9,7 @@ import (
 	"testing"
 
 	"github.com/scanfold/scanfold/mesh"
+	"github.com/scanfold/scanfold/mesh/render"
 )
 
 // surfaceDistances samples both meshes evenly (mesh.SampleSurface) and
@@ -176,4 +178,40 @@ func containsStr(s, sub string) bool {
 		}
 	}
 	return false
+}
+
+// TestFuseSkipsEmptyFrame blanks one frame's depth (a covered lens): the
+// frame is skipped with its reason, or is fatal with Strict.
+func TestFuseSkipsEmptyFrame(t *testing.T) {
+	opt := DefaultSynthOptions()
+	opt.Frames = 8
+	opt.Seed = 5
+	dir := synthSweep(t, "labelbox", opt)
+	sw, err := LoadSweep(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	blank := make([]float32, opt.Intrinsics.Width*opt.Intrinsics.Height)
+	var buf bytes.Buffer
+	if _, err := render.WriteDepthPNG(&buf, blank, opt.Intrinsics.Width, opt.Intrinsics.Height, sw.Manifest.DepthUnit); err != nil {
+		t.Fatal(err)
+	}
+	writeFile(t, dir, sw.Manifest.Frames[3].Depth, buf.Bytes())
+	if sw, err = LoadSweep(dir); err != nil {
+		t.Fatal(err)
+	}
+	fo := DefaultFuseOptions()
+	fo.TSDF.VoxelSize = 0.003
+	res, err := Fuse(context.Background(), sw, fo)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if res.Report.FramesUsed != 7 || len(res.Report.Skipped) != 1 || res.Report.Skipped[0].Frame != 3 ||
+		!containsStr(res.Report.Skipped[0].Reason, "have a depth between") {
+		t.Errorf("used %d, skipped %+v", res.Report.FramesUsed, res.Report.Skipped)
+	}
+	fo.Strict = true
+	if _, err := Fuse(context.Background(), sw, fo); err == nil || !containsStr(err.Error(), "frame 3") {
+		t.Errorf("strict: err = %v, want one naming frame 3", err)
+	}
 }
