@@ -41,6 +41,28 @@
 // the pose is found from pairs that span two surfaces, which carry the
 // information anyway.
 //
+// # Voting and refinement
+//
+// Vote follows Drost et al. (2010): every fifth scene point is a
+// reference; its pairs with the scene points within the model diameter
+// (k-d tree radius search) look up their keys, and every model pair
+// found votes for (model reference point, α) in a flat accumulator that
+// each worker reuses. With Hinterstoisser et al. (2016) each pair also
+// looks up the neighbouring bin of every feature dimension on the side
+// of the nearer edge (up to 16 keys) and votes into the nearer
+// neighbouring α bin, and a flag per (reference, key, α_s bin) keeps a
+// combination from voting twice. The best cell of each of the three
+// best model points becomes a pose; poses are clustered greedily (0.1 of
+// the diameter, 24°) and a cluster's votes are summed. Symmetric parts
+// give one cluster per equivalent pose, and they are all returned.
+//
+// Refinement is point-to-plane ICP built on mesh.PlaneSystem with the
+// pair rules of mesh.ICPPointToPlane, in two stages (a coarse one from
+// the voted pose, then one on close pairs with near-parallel normals),
+// centred on the model and damped, because a single view often leaves a
+// direction unconstrained (two visible planes let the part slide along
+// their common line) and an undamped solve then refuses the step.
+//
 // # Degenerate input
 //
 // Decided once, here. A cloud without normals, with a non-finite

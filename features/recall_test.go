@@ -107,6 +107,18 @@ func renderView(t testing.TB, rng *rand.Rand, p recallPart, spacing float64, rd 
 		if err != nil {
 			t.Fatal(err)
 		}
+		// SCANFOLD_RECALL_EXACT_NORMALS=1 takes the scene normals from the
+		// renderer's normal map instead of estimating them from depth:
+		// a diagnostic that separates voting from normal estimation.
+		if os.Getenv("SCANFOLD_RECALL_EXACT_NORMALS") == "1" {
+			for _, c := range []*mesh.Cloud{scene, dense} {
+				for i, q := range c.Points {
+					u, v := intr.Project(q)
+					px := int(math.Round(v))*intr.Width + int(math.Round(u))
+					c.Normals[i] = r3.Vec{X: float64(f.Normal[3*px]), Y: float64(f.Normal[3*px+1]), Z: float64(f.Normal[3*px+2])}
+				}
+			}
+		}
 		return recallView{truth: truth, scene: scene, dense: dense, visibility: vis}
 	}
 }

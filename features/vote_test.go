@@ -214,3 +214,58 @@ func TestDampedICPMatchesMeshICP(t *testing.T) {
 		t.Errorf("only %d well-constrained views compared", both)
 	}
 }
+
+// TestVoteDeterministic: the hypotheses do not depend on the number of
+// workers.
+func TestVoteDeterministic(t *testing.T) {
+	part := blockPart()
+	model := modelOf(t, part)
+	rng := rand.New(rand.NewPCG(3, 4))
+	scene := viewCloud(t, part, randomView(rng), model.Spacing, 5)
+	var ref []Hypothesis
+	for _, w := range []int{1, 2, 3, 7} {
+		opt := DefaultVoteOptions()
+		opt.Workers = w
+		hyps, err := Vote(model, scene, opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if ref == nil {
+			ref = hyps
+			continue
+		}
+		if len(hyps) != len(ref) {
+			t.Fatalf("%d workers: %d hypotheses, 1 worker: %d", w, len(hyps), len(ref))
+		}
+		for i := range hyps {
+			if hyps[i].Votes != ref[i].Votes || hyps[i].Voted != ref[i].Voted || hyps[i].ModelToScene != ref[i].ModelToScene {
+				t.Fatalf("%d workers: hypothesis %d differs", w, i)
+			}
+		}
+	}
+}
+
+func TestVoteErrorsAndEmpty(t *testing.T) {
+	model := modelOf(t, blockPart())
+	if _, err := Vote(model, &mesh.Cloud{Points: []r3.Vec{{}}}, DefaultVoteOptions()); err == nil {
+		t.Error("scene without normals: no error")
+	}
+	if _, err := Vote(model, &mesh.Cloud{Points: []r3.Vec{{X: math.NaN()}}, Normals: []r3.Vec{{Z: 1}}}, DefaultVoteOptions()); err == nil {
+		t.Error("NaN scene point: no error")
+	}
+	if _, err := Vote(&Model{}, &mesh.Cloud{}, DefaultVoteOptions()); err == nil {
+		t.Error("empty model: no error")
+	}
+	bad := DefaultVoteOptions()
+	bad.ReferenceStep = 0
+	if _, err := Vote(model, &mesh.Cloud{}, bad); err == nil {
+		t.Error("reference step 0: no error")
+	}
+	// An empty scene and a scene of one point give no hypotheses.
+	for _, sc := range []*mesh.Cloud{{}, {Points: []r3.Vec{{Z: 0.5}}, Normals: []r3.Vec{{Z: -1}}}} {
+		hyps, err := Vote(model, sc, DefaultVoteOptions())
+		if err != nil || len(hyps) != 0 {
+			t.Errorf("%d-point scene: %d hypotheses, %v", len(sc.Points), len(hyps), err)
+		}
+	}
+}
