@@ -187,8 +187,8 @@ func runRecall(t *testing.T, p recallPart, n int, seed uint64) recallStats {
 		t.Fatal(err)
 	}
 	pts := dense.Points
-	// The refinement moves a sample at a quarter of the model spacing.
-	so.Spacing = model.Spacing / 4
+	// The refinement moves a sample at half the model spacing.
+	so.Spacing = model.Spacing / 2
 	refineModel, _, err := mesh.Sample(p.mesh, so)
 	if err != nil {
 		t.Fatal(err)
