@@ -135,3 +135,25 @@ func TestBlockGridGrowsAndGivesUp(t *testing.T) {
 		t.Fatal("an unallocated block was found")
 	}
 }
+
+// TestVoxelMasksMatchWeights checks the invariant raycasting relies on:
+// a voxel's mask bit is set exactly when its weight is positive.
+func TestVoxelMasksMatchWeights(t *testing.T) {
+	c := r3.Vec{Z: 0.5}
+	vol := fuseSphere(t, DefaultTSDFOptions(), c, 0.04, orbitPoses(t, 6, c, 0.45, 0.3))
+	set := 0
+	for bi, b := range vol.blocks {
+		for i := range b.W {
+			bit := vol.masks[bi][i>>6]&(1<<(i&63)) != 0
+			if bit != (b.W[i] > 0) {
+				t.Fatalf("block %v voxel %d: mask %v, weight %g", vol.keys[bi], i, bit, b.W[i])
+			}
+			if bit {
+				set++
+			}
+		}
+	}
+	if set == 0 {
+		t.Fatal("no voxel observed")
+	}
+}

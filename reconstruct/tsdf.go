@@ -98,8 +98,9 @@ type Volume struct {
 	index  map[BlockKey]int32
 	keys   []BlockKey // allocation order; blocks[i] is at keys[i]
 	blocks []*Block
-	slab   []Block  // blocks are carved from slabs to spare the allocator
-	lo, hi BlockKey // box around the allocated blocks
+	masks  []voxelMask // masks[i] marks the observed voxels of blocks[i]
+	slab   []Block     // blocks are carved from slabs to spare the allocator
+	lo, hi BlockKey    // box around the allocated blocks
 	grid   blockGrid
 	// scratch reused between frames
 	fresh   map[BlockKey]struct{}
@@ -107,6 +108,12 @@ type Volume struct {
 	visible []int32
 	counts  []int
 }
+
+// voxelMask has one bit per voxel of a block (bit i%64 of word i/64 for
+// voxel index i), set once the voxel has been observed (W > 0; weights
+// never return to 0). At 64 bytes a block it stays in cache where the
+// weights would not, so raycasting tests it before reading distances.
+type voxelMask [blockVoxels / 64]uint64
 
 // slabBlocks is how many blocks are allocated at once.
 const slabBlocks = 32
@@ -117,11 +124,40 @@ const maxGridCells = 1 << 23
 
 // blockGrid indexes the blocks of a box of block keys densely: cell
 // (x, y, z) holds 1 + the block's position in Volume.blocks, 0 for none.
+// A coarser grid counts the blocks of each group of groupSide³ blocks
+// (groups aligned on multiples of groupSide), so that a ray can leap
+// over a whole empty group.
 type blockGrid struct {
-	ok         bool
-	lo         BlockKey
-	nx, ny, nz int32
-	cells      []int32
+	ok            bool
+	lo            BlockKey
+	nx, ny, nz    int32
+	cells         []int32
+	glo           BlockKey // group key of the coarse grid's first cell
+	gnx, gny, gnz int32
+	groups        []int32
+}
+
+// groupSide is the side of a block group, in blocks: 4 (64 mm at 2 mm
+// voxels) leaps far over empty space yet still fits around parts.
+const groupSide = 4
+
+// groupOf returns the key of the group holding block k.
+func groupOf(k BlockKey) BlockKey { return BlockKey{k.X >> 2, k.Y >> 2, k.Z >> 2} }
+
+// groupEmpty reports whether the group holding block k has no block.
+func (g *blockGrid) groupEmpty(k BlockKey) bool {
+	c := groupOf(k)
+	x, y, z := c.X-g.glo.X, c.Y-g.glo.Y, c.Z-g.glo.Z
+	if uint32(x) >= uint32(g.gnx) || uint32(y) >= uint32(g.gny) || uint32(z) >= uint32(g.gnz) {
+		return true
+	}
+	return g.groups[int(x)+int(g.gnx)*(int(y)+int(g.gny)*int(z))] == 0
+}
+
+func (g *blockGrid) countGroup(k BlockKey) {
+	c := groupOf(k)
+	x, y, z := c.X-g.glo.X, c.Y-g.glo.Y, c.Z-g.glo.Z
+	g.groups[int(x)+int(g.gnx)*(int(y)+int(g.gny)*int(z))]++
 }
 
 func (g *blockGrid) cell(k BlockKey) (int, bool) {
@@ -166,26 +202,33 @@ func (v *Volume) Options() TSDFOptions { return v.opt }
 // NumBlocks returns the number of allocated blocks.
 func (v *Volume) NumBlocks() int { return len(v.blocks) }
 
-// Block returns the block at key, or nil.
+// Block returns the block at key, or nil. The block is the volume's own:
+// read it, do not write it (raycasting keeps its own record of which
+// voxels are observed).
 func (v *Volume) Block(key BlockKey) *Block { return v.lookup(key) }
 
-// lookup returns the block at key, or nil: through the dense grid when
-// there is one, else the hash index.
+// lookup returns the block at key, or nil.
 func (v *Volume) lookup(key BlockKey) *Block {
-	if v.grid.ok {
-		c, in := v.grid.cell(key)
-		if !in {
-			return nil
-		}
-		if i := v.grid.cells[c]; i != 0 {
-			return v.blocks[i-1]
-		}
-		return nil
-	}
-	if i, ok := v.index[key]; ok {
+	if i := v.position(key); i >= 0 {
 		return v.blocks[i]
 	}
 	return nil
+}
+
+// position returns the position of the block at key in v.blocks, or −1:
+// through the dense grid when there is one, else the hash index.
+func (v *Volume) position(key BlockKey) int32 {
+	if v.grid.ok {
+		c, in := v.grid.cell(key)
+		if !in {
+			return -1
+		}
+		return v.grid.cells[c] - 1
+	}
+	if i, ok := v.index[key]; ok {
+		return i
+	}
+	return -1
 }
 
 // Keys returns the allocated block keys in a fixed (sorted) order.
@@ -228,8 +271,10 @@ func (v *Volume) addBlocks(keys []BlockKey) error {
 		v.index[k] = int32(len(v.blocks))
 		v.keys = append(v.keys, k)
 		v.blocks = append(v.blocks, b)
+		v.masks = append(v.masks, voxelMask{})
 		if c, in := v.grid.cell(k); in && v.grid.ok {
 			v.grid.cells[c] = int32(len(v.blocks))
+			v.grid.countGroup(k)
 		} else {
 			outside = true
 		}
@@ -270,9 +315,20 @@ func (v *Volume) rebuildGrid() {
 	}
 	g.lo = BlockKey{x0, y0, z0}
 	g.nx, g.ny, g.nz = int32(nx), int32(ny), int32(nz)
+	g.glo = groupOf(g.lo)
+	ghi := groupOf(BlockKey{x1, y1, z1})
+	g.gnx, g.gny, g.gnz = ghi.X-g.glo.X+1, ghi.Y-g.glo.Y+1, ghi.Z-g.glo.Z+1
+	ng := int(g.gnx) * int(g.gny) * int(g.gnz)
+	if cap(g.groups) >= ng {
+		g.groups = g.groups[:ng]
+		clear(g.groups)
+	} else {
+		g.groups = make([]int32, ng)
+	}
 	for i, k := range v.keys {
 		c, _ := g.cell(k)
 		g.cells[c] = int32(i + 1)
+		g.countGroup(k)
 	}
 	g.ok = true
 }
@@ -368,7 +424,7 @@ func (v *Volume) Integrate(ctx context.Context, im *DepthImage, camToWorld mesh.
 			return
 		}
 		for _, i := range v.visible[c*chunk : min((c+1)*chunk, len(v.visible))] {
-			counts[c] += pr.integrateBlock(v.keys[i], v.blocks[i])
+			counts[c] += pr.integrateBlock(v.keys[i], v.blocks[i], &v.masks[i])
 		}
 	})
 	if err := ctx.Err(); err != nil {
@@ -495,9 +551,9 @@ func (v *Volume) newProjector(im *DepthImage, worldToCam mesh.Pose) *projector {
 	}
 }
 
-// integrateBlock updates one block's voxels and returns how many it
-// updated.
-func (pr *projector) integrateBlock(key BlockKey, b *Block) int {
+// integrateBlock updates one block's voxels, marks them observed in
+// mask, and returns how many it updated.
+func (pr *projector) integrateBlock(key BlockKey, b *Block, mask *voxelMask) int {
 	im := pr.im
 	vs := pr.vs
 	origin := r3.Vec{X: float64(key.X) * BlockSide * vs, Y: float64(key.Y) * BlockSide * vs, Z: float64(key.Z) * BlockSide * vs}
@@ -559,6 +615,7 @@ func (pr *projector) integrateBlock(key BlockKey, b *Block) int {
 					cc[2] = (W*cc[2] + wt*float32(c[2])) / nw
 				}
 				b.W[idx] = min(nw, maxW)
+				mask[idx>>6] |= 1 << (idx & 63)
 				updates++
 			}
 		}
