@@ -157,3 +157,46 @@ func TestVoxelMasksMatchWeights(t *testing.T) {
 		t.Fatal("no voxel observed")
 	}
 }
+
+// TestCullingChangesNothing integrates the same views with and without
+// culling the blocks that a frame sees from behind: every voxel must be
+// identical, and some blocks must have been culled for the test to
+// mean anything.
+func TestCullingChangesNothing(t *testing.T) {
+	c := r3.Vec{Z: 0.5}
+	poses := orbitPoses(t, 8, c, 0.45, 0.3)
+	culled := 0
+	build := func(noCull bool) *Volume {
+		vol, err := NewVolume(DefaultTSDFOptions())
+		if err != nil {
+			t.Fatal(err)
+		}
+		vol.noCull = noCull
+		for _, p := range poses {
+			depth := sphereDepth(testIntr, p, c, 0.04)
+			im := &DepthImage{Intr: testIntr, Depth: depth, Weight: MeasurementWeights(depth, testIntr, DefaultWeightOptions(), nil)}
+			if _, err := vol.Integrate(context.Background(), im, p); err != nil {
+				t.Fatal(err)
+			}
+			if !noCull {
+				pr := vol.newProjector(im, p.Inv())
+				for _, k := range vol.keys {
+					o := r3.Scale(vol.opt.VoxelSize*BlockSide, r3.Vec{X: float64(k.X), Y: float64(k.Y), Z: float64(k.Z)})
+					if pr.behindAll(pr.worldToCam.Apply(o)) {
+						culled++
+					}
+				}
+			}
+		}
+		return vol
+	}
+	a, b := build(false), build(true)
+	if culled == 0 {
+		t.Fatal("no block was culled: the test does not exercise culling")
+	}
+	for i, k := range a.keys {
+		if *a.blocks[i] != *b.Block(k) || a.masks[i] != b.masks[b.index[k]] {
+			t.Fatalf("block %v differs with culling", k)
+		}
+	}
+}

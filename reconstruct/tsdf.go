@@ -107,6 +107,7 @@ type Volume struct {
 	pending []BlockKey
 	visible []int32
 	counts  []int
+	noCull  bool // tests: integrate without culling blocks seen from behind
 }
 
 // voxelMask has one bit per voxel of a block (bit i%64 of word i/64 for
@@ -536,6 +537,7 @@ type projector struct {
 	minD, maxD             float64
 	fx, fy, cx, cy, fw, fh float64
 	w                      int
+	noCull                 bool // tests: project every block
 }
 
 func (v *Volume) newProjector(im *DepthImage, worldToCam mesh.Pose) *projector {
@@ -547,8 +549,59 @@ func (v *Volume) newProjector(im *DepthImage, worldToCam mesh.Pose) *projector {
 		vs: vs, mu: v.mu, invMu: float32(1 / v.mu), maxW: v.opt.MaxWeight,
 		minD: v.opt.MinDepth, maxD: v.opt.MaxDepth,
 		fx: k.Fx, fy: k.Fy, cx: k.Cx, cy: k.Cy, fw: float64(k.Width), fh: float64(k.Height),
-		w: k.Width,
+		w: k.Width, noCull: v.noCull,
 	}
+}
+
+// behindAll reports whether no voxel of the block whose voxel (0, 0, 0)
+// lies at camera-frame point base can be updated by this frame: every
+// pixel its voxels project to has no usable measurement, or lies more
+// than μ in front of the block's nearest voxel. A voxel is updated only
+// if its depth is at most d + μ (the signed distance along the ray is at
+// least the depth difference), and its pixel lies inside the rectangle
+// of the projected corners of the voxels' box (all in front of the
+// camera; otherwise nothing is culled). Culling changes no voxel: it
+// spares the projection of blocks seen from behind.
+func (pr *projector) behindAll(base r3.Vec) bool {
+	const last = BlockSide - 1
+	u0, u1, v0, v1 := math.Inf(1), math.Inf(-1), math.Inf(1), math.Inf(-1)
+	zmin := math.Inf(1)
+	for c := 0; c < 8; c++ {
+		p := base
+		if c&1 != 0 {
+			p = r3.Add(p, r3.Scale(last, pr.ex))
+		}
+		if c&2 != 0 {
+			p = r3.Add(p, r3.Scale(last, pr.ey))
+		}
+		if c&4 != 0 {
+			p = r3.Add(p, r3.Scale(last, pr.ez))
+		}
+		if p.Z < pr.minD {
+			return false
+		}
+		zmin = math.Min(zmin, p.Z)
+		u, v := pr.fx*p.X/p.Z+pr.cx+0.5, pr.fy*p.Y/p.Z+pr.cy+0.5
+		u0, u1 = math.Min(u0, u), math.Max(u1, u)
+		v0, v1 = math.Min(v0, v), math.Max(v1, v)
+	}
+	if u1 < 0 || v1 < 0 || u0 >= pr.fw || v0 >= pr.fh {
+		return true // nothing projects into the image
+	}
+	x0, x1 := max(0, int(math.Floor(u0))), min(pr.w-1, int(u1))
+	y0, y1 := max(0, int(math.Floor(v0))), min(int(pr.fh)-1, int(v1))
+	limit := float32(zmin - pr.mu) // a pixel deeper than this may update a voxel
+	minD, maxD := float32(pr.minD), float32(pr.maxD)
+	depth, weight := pr.im.Depth, pr.im.Weight
+	for y := y0; y <= y1; y++ {
+		row := depth[y*pr.w+x0 : y*pr.w+x1+1]
+		for x, d := range row {
+			if d >= limit && d >= minD && d <= maxD && (weight == nil || weight[y*pr.w+x0+x] > 0) {
+				return false
+			}
+		}
+	}
+	return true
 }
 
 // integrateBlock updates one block's voxels, marks them observed in
@@ -563,6 +616,9 @@ func (pr *projector) integrateBlock(key BlockKey, b *Block, mask *voxelMask) int
 	minD, maxD, mu, invMu, maxW := pr.minD, pr.maxD, pr.mu, pr.invMu, pr.maxW
 	w := pr.w
 	depth, weight, behind, color := im.Depth, im.Weight, im.Behind, im.Color
+	if !pr.noCull && pr.behindAll(base) {
+		return 0
+	}
 	updates := 0
 	idx := 0
 	for kz := 0; kz < BlockSide; kz++ {
@@ -606,13 +662,14 @@ func (pr *projector) integrateBlock(key BlockKey, b *Block, mask *voxelMask) int
 				tsdf := min(float32(sdf)*invMu, 1)
 				W := b.W[idx]
 				nw := W + wt
-				b.D[idx] = (W*b.D[idx] + wt*tsdf) / nw
+				rn := 1 / nw
+				b.D[idx] = (W*b.D[idx] + wt*tsdf) * rn
 				if color != nil {
 					c := color[3*pix : 3*pix+3]
 					cc := &b.C[idx]
-					cc[0] = (W*cc[0] + wt*float32(c[0])) / nw
-					cc[1] = (W*cc[1] + wt*float32(c[1])) / nw
-					cc[2] = (W*cc[2] + wt*float32(c[2])) / nw
+					cc[0] = (W*cc[0] + wt*float32(c[0])) * rn
+					cc[1] = (W*cc[1] + wt*float32(c[1])) * rn
+					cc[2] = (W*cc[2] + wt*float32(c[2])) * rn
 				}
 				b.W[idx] = min(nw, maxW)
 				mask[idx>>6] |= 1 << (idx & 63)
