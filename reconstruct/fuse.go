@@ -739,9 +739,9 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			return err
 		}
 		if scene != nil {
-			im := fr.DepthImage()
-			im.Color = nil
-			im.Weight = MeasurementWeights(fr.Depth, fr.Intr, f.opt.Weights, nil)
+			// The part's weights serve the scene too (only the bands behind
+			// the surface differ, and the scene keeps the full truncation).
+			im := &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.weights}
 			if _, err := scene.Integrate(ctx, im, pose); err != nil {
 				return fmt.Errorf("reconstruct: %s: frame %d: %w", f.sw.Dir, idx, err)
 			}
