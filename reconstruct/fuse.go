@@ -45,6 +45,11 @@ type FuseOptions struct {
 	// aligned with the first frame both ways.
 	// DEFAULT: 6
 	AxisViews int
+	// AxisModelPasses is how many times an estimated axis is refined by
+	// fusing every frame about it and aligning twice AxisViews frames
+	// with the fused model (each pass costs one more fusion).
+	// DEFAULT: 1
+	AxisModelPasses int
 	// RefineTurntable refines every turntable frame's pose by
 	// frame-to-model ICP against the volume so far (masked to the region
 	// of interest, damped, and refused beyond MaxRefineShift/Turn), for
@@ -106,6 +111,7 @@ func DefaultFuseOptions() FuseOptions {
 		TrackMaxDepth:        1.5,
 		Axis:                 DefaultAxisOptions(),
 		AxisViews:            6,
+		AxisModelPasses:      1,
 		RefineDamping:        1e-2,
 		MaxRefineShift:       0.0015,
 		MaxRefineTurn:        0.5 * math.Pi / 180,
@@ -443,8 +449,71 @@ func (f *fuser) turntable(ctx context.Context, worldFromFirst mesh.Pose) error {
 		f.setROI(f.sup.Plane, foot, r3.Norm(off)+f.sup.Radius)
 	}
 	setROI(point)
+	if !calibrated && f.opt.AxisModelPasses > 0 {
+		// Views aligned with each other pin the axis only as well as two
+		// noisy, partial clouds allow; a small part gives few points. A
+		// model fused from every frame about that axis is smooth and
+		// complete, so aligning frames with it pins the axis closer, and
+		// the model fused again about the better axis is sharper still.
+		skipped := len(f.rep.Skipped)
+		for pass := 0; pass < f.opt.AxisModelPasses; pass++ {
+			if err := f.turntablePass(ctx, point, up, rel, false, "fuse (axis pass)"); err != nil {
+				return err
+			}
+			f.rep.Skipped = f.rep.Skipped[:skipped]
+			fit, err := f.refineAxis(point, up, rel)
+			var err2 error
+			if f.part, err2 = NewVolume(f.opt.TSDF); err2 != nil {
+				return err2
+			}
+			f.rep.FramesUsed = 0
+			if err != nil {
+				break // keep the axis from the views
+			}
+			point = fit.Point
+			f.rep.AxisRMS = fit.RMS
+			setROI(point)
+		}
+	}
 	f.rep.Axis = &Axis{Point: point, Direction: up}
 	return f.turntablePass(ctx, point, up, rel, f.opt.RefineTurntable, "fuse")
+}
+
+// refineAxis aligns frames spread around the turn with the model fused
+// so far and returns the axis point that fits them best.
+func (f *fuser) refineAxis(point, up r3.Vec, rel func(int) (float64, bool)) (AxisFit, error) {
+	m, err := f.part.Extract(f.opt.MinWeight)
+	if err != nil {
+		return AxisFit{}, err
+	}
+	model := &mesh.Cloud{}
+	crop := 3 * axialSigma(r3.Norm(point), 0)
+	for i, v := range m.Vertices {
+		if f.roi.Plane.Distance(v) >= crop {
+			model.Points = append(model.Points, v)
+			model.Normals = append(model.Normals, m.Normals[i])
+		}
+	}
+	usable := f.sw.Usable()
+	n := min(len(usable), 2*max(1, f.opt.AxisViews))
+	var pairs []AxisPair
+	for k := 0; k < n; k++ {
+		idx := usable[k*len(usable)/n]
+		a, ok := rel(idx)
+		if !ok {
+			continue
+		}
+		fr, err := f.sw.Frame(idx)
+		if err != nil {
+			continue
+		}
+		if c := f.plateCloud(fr); len(c.Points) > 0 {
+			pairs = append(pairs, AxisPair{From: c, To: model, Angle: -a})
+		}
+	}
+	opt := f.opt.Axis
+	opt.MaxDistance, opt.FinalDistance = 0.005, 0.002
+	return EstimateAxisPoint(up, point, pairs, opt)
 }
 
 // turntablePass places every usable frame by its plate angle about the
@@ -570,7 +639,7 @@ func (f *fuser) plateCloud(fr *Frame) *mesh.Cloud {
 	vert, norm := make([]r3.Vec, n), make([]r3.Vec, n)
 	vertexNormalMaps(fr.Depth, fr.Intr, vert, norm, 2)
 	w, h := fr.Intr.Width, fr.Intr.Height
-	near := nearEdges(fr.Depth, w, h, 0.01, 2)
+	near := nearEdges(fr.Depth, w, h, 0.01, 0)
 	pl := f.sup.Plane
 	centre, radius := f.sup.SupportCentre, f.sup.SupportRadius
 	if radius == 0 {
@@ -580,7 +649,7 @@ func (f *fuser) plateCloud(fr *Frame) *mesh.Cloud {
 	// Over the whole plate, 2σ noise (MinHeight) would let through
 	// thousands of plate pixels; 4σ of the axial noise at the plate's
 	// distance lets through a handful.
-	minHeight := math.Max(f.opt.Support.MinHeight, 4*axialSigma(r3.Norm(centre), 0))
+	minHeight := math.Max(f.opt.Support.MinHeight, 3*axialSigma(r3.Norm(centre), 0))
 	c := &mesh.Cloud{}
 	for i, z := range fr.Depth {
 		if z <= 0 || near[i] || norm[i] == (r3.Vec{}) {
