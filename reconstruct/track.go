@@ -293,6 +293,7 @@ func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD,
 	mi := t.model.Intr
 	maxD2 := maxD * maxD
 	refSigma2 := axialSigma(0.5, 0) * axialSigma(0.5, 0)
+	camToModel := worldToModel.Mul(camToWorld)
 	par.For(nParts, t.opt.Workers, func(k int) {
 		sys := &parts[k]
 		*sys = mesh.PlaneSystem{}
@@ -305,8 +306,7 @@ func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD,
 				if n == (r3.Vec{}) {
 					continue
 				}
-				p := camToWorld.Apply(lv.vert[i])
-				pm := worldToModel.Apply(p)
+				pm := camToModel.Apply(lv.vert[i])
 				if pm.Z <= 0 {
 					continue
 				}
@@ -321,6 +321,7 @@ func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD,
 					continue
 				}
 				cands[k]++
+				p := camToWorld.Apply(lv.vert[i])
 				q := t.model.Points[j]
 				if r3.Norm2(r3.Sub(p, q)) > maxD2 || r3.Dot(camToWorld.Rotate(n), nq) < cosMax {
 					continue
@@ -403,41 +404,54 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 // pixels with a normal.
 func vertexNormalMaps(depth []float32, intr mesh.Intrinsics, vert, norm []r3.Vec, span int) int {
 	w, h := intr.Width, intr.Height
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			i := y*w + x
-			z := depth[i]
-			if z > 0 {
-				vert[i] = intr.BackProject(float64(x), float64(y), float64(z))
-			} else {
-				vert[i] = r3.Vec{}
+	const rows = 16
+	bands := (h + rows - 1) / rows
+	par.For(bands, 0, func(b int) {
+		for y := b * rows; y < min(h, (b+1)*rows); y++ {
+			for x := 0; x < w; x++ {
+				i := y*w + x
+				z := depth[i]
+				if z > 0 {
+					vert[i] = intr.BackProject(float64(x), float64(y), float64(z))
+				} else {
+					vert[i] = r3.Vec{}
+				}
 			}
 		}
-	}
+	})
+	counts := make([]int, bands)
+	par.For(bands, 0, func(b int) {
+		for y := b * rows; y < min(h, (b+1)*rows); y++ {
+			for x := 0; x < w; x++ {
+				i := y*w + x
+				norm[i] = r3.Vec{}
+				z := depth[i]
+				if z <= 0 || x < span || y < span || x >= w-span || y >= h-span {
+					continue
+				}
+				jump := 0.05 * z
+				l, r, u, d := depth[i-span], depth[i+span], depth[i-span*w], depth[i+span*w]
+				if l <= 0 || r <= 0 || u <= 0 || d <= 0 ||
+					abs32(l-z) > jump || abs32(r-z) > jump || abs32(u-z) > jump || abs32(d-z) > jump {
+					continue
+				}
+				n := r3.Cross(r3.Sub(vert[i+span], vert[i-span]), r3.Sub(vert[i+span*w], vert[i-span*w]))
+				nn := r3.Dot(n, n)
+				if nn == 0 {
+					continue
+				}
+				s := 1 / math.Sqrt(nn)
+				if r3.Dot(n, vert[i]) > 0 {
+					s = -s
+				}
+				norm[i] = r3.Scale(s, n)
+				counts[b]++
+			}
+		}
+	})
 	valid := 0
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			i := y*w + x
-			norm[i] = r3.Vec{}
-			z := depth[i]
-			if z <= 0 || x < span || y < span || x >= w-span || y >= h-span {
-				continue
-			}
-			jump := 0.05 * z
-			l, r, u, d := depth[i-span], depth[i+span], depth[i-span*w], depth[i+span*w]
-			if l <= 0 || r <= 0 || u <= 0 || d <= 0 ||
-				abs32(l-z) > jump || abs32(r-z) > jump || abs32(u-z) > jump || abs32(d-z) > jump {
-				continue
-			}
-			n := mesh.Normalize(r3.Cross(r3.Sub(vert[i+span], vert[i-span]), r3.Sub(vert[i+span*w], vert[i-span*w])))
-			if r3.Dot(n, vert[i]) > 0 {
-				n = r3.Scale(-1, n)
-			}
-			norm[i] = n
-			if n != (r3.Vec{}) {
-				valid++
-			}
-		}
+	for _, c := range counts {
+		valid += c
 	}
 	return valid
 }
