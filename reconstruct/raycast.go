@@ -80,10 +80,34 @@ func (s *sampler) interpolate(bi int32, idx, i, j, k int, tx, ty, tz float32) (f
 			c[n] = b.D[idx+off]
 		}
 	} else {
+		// Corners spill into the neighbouring blocks along the axes where
+		// voxel (i, j, k) is the last of its block.
 		var bis [8]int32
 		var idxs [8]int
+		g := &v.grid
+		c0, inGrid := g.inner(BlockKey{int32(i >> 3), int32(j >> 3), int32(k >> 3)})
 		for n := 0; n < 8; n++ {
-			bi, idx := s.block(i+n&1, j+(n>>1)&1, k+(n>>2)&1)
+			dx, dy, dz := n&1, n>>1&1, n>>2&1
+			var bi int32
+			var idx int
+			if inGrid && g.ok {
+				// Neighbour cells by stride: an allocated block lies at
+				// least one cell inside the grid (rebuildGrid's margin).
+				cell := c0
+				if dx == 1 && i&7 == 7 {
+					cell++
+				}
+				if dy == 1 && j&7 == 7 {
+					cell += int(g.nx)
+				}
+				if dz == 1 && k&7 == 7 {
+					cell += int(g.nx) * int(g.ny)
+				}
+				bi = g.cells[cell] - 1
+				idx = (i+dx)&7 + BlockSide*((j+dy)&7+BlockSide*((k+dz)&7))
+			} else {
+				bi, idx = s.block(i+dx, j+dy, k+dz)
+			}
 			if bi < 0 || v.masks[bi][idx>>6]&(1<<(idx&63)) == 0 {
 				return 0, false
 			}

@@ -161,6 +161,16 @@ func (g *blockGrid) countGroup(k BlockKey) {
 	g.groups[int(x)+int(g.gnx)*(int(y)+int(g.gny)*int(z))]++
 }
 
+// inner returns the cell of block k when k lies inside the grid with a
+// cell to spare on every side (so its 26 neighbours have cells too).
+func (g *blockGrid) inner(k BlockKey) (int, bool) {
+	x, y, z := k.X-g.lo.X-1, k.Y-g.lo.Y-1, k.Z-g.lo.Z-1
+	if uint32(x) >= uint32(g.nx-2) || uint32(y) >= uint32(g.ny-2) || uint32(z) >= uint32(g.nz-2) {
+		return 0, false
+	}
+	return int(x+1) + int(g.nx)*(int(y+1)+int(g.ny)*int(z+1)), true
+}
+
 func (g *blockGrid) cell(k BlockKey) (int, bool) {
 	x, y, z := k.X-g.lo.X, k.Y-g.lo.Y, k.Z-g.lo.Z
 	if uint32(x) >= uint32(g.nx) || uint32(y) >= uint32(g.ny) || uint32(z) >= uint32(g.nz) {
@@ -273,7 +283,7 @@ func (v *Volume) addBlocks(keys []BlockKey) error {
 		v.keys = append(v.keys, k)
 		v.blocks = append(v.blocks, b)
 		v.masks = append(v.masks, voxelMask{})
-		if c, in := v.grid.cell(k); in && v.grid.ok {
+		if c, in := v.grid.inner(k); in && v.grid.ok {
 			v.grid.cells[c] = int32(len(v.blocks))
 			v.grid.countGroup(k)
 		} else {
@@ -287,7 +297,8 @@ func (v *Volume) addBlocks(keys []BlockKey) error {
 }
 
 // rebuildGrid lays the dense index over the blocks' box widened by a
-// margin (so that a growing volume rebuilds it rarely), or drops it when
+// margin of at least two blocks (so that a growing volume rebuilds it
+// rarely, and every block's neighbours have cells), or drops it when
 // that box would pass maxGridCells.
 func (v *Volume) rebuildGrid() {
 	g := &v.grid
