@@ -153,11 +153,11 @@ func benchICP(b *testing.B, damped bool) {
 	b.ResetTimer()
 	var res mesh.ICPResult
 	for i := 0; i < b.N; i++ {
+		o := opt
 		if damped {
-			res, err = dampedICP(src, dense, tree, init, opt)
-		} else {
-			res, err = mesh.ICPPointToPlane(src, dense, tree, init, opt)
+			o.Damping = icpDamping
 		}
+		res, err = mesh.ICPPointToPlane(src, dense, tree, init, o)
 		if err != nil {
 			b.Fatal(err)
 		}

@@ -499,6 +499,9 @@ func (m *Model) refine(hyps []Hypothesis, scene *mesh.Cloud, tree *mesh.KDTree, 
 		}
 	}
 	icp := opt.ICP
+	if icp.Damping == 0 {
+		icp.Damping = icpDamping
+	}
 	if icp.MaxDistance == 0 {
 		icp.MaxDistance = 0.1 * m.Diameter
 	}
@@ -506,13 +509,13 @@ func (m *Model) refine(hyps []Hypothesis, scene *mesh.Cloud, tree *mesh.KDTree, 
 		icp.HuberDelta = m.Spacing
 	}
 	for i := range hyps {
-		res, err := dampedICP(src, dst, near, hyps[i].ModelToScene, icp)
+		res, err := mesh.ICPPointToPlane(src, dst, near, hyps[i].ModelToScene, icp)
 		if err == nil {
 			fine := icp
 			fine.MaxDistance = fineDistance * m.Spacing
 			fine.MaxNormalAngle = fineNormalAngle
 			fine.MaxIterations = min(fine.MaxIterations, fineIterations)
-			if r2, err2 := dampedICP(src, dst, near, res.Pose, fine); err2 == nil {
+			if r2, err2 := mesh.ICPPointToPlane(src, dst, near, res.Pose, fine); err2 == nil {
 				res = r2
 			}
 		}
@@ -559,87 +562,3 @@ const (
 // move the converged pose. 1e-3·W slows the constrained directions by
 // about 0.3% per step.
 const icpDamping = 1e-3
-
-// dampedICP is point-to-plane ICP with mesh.ICPOptions' semantics (the
-// pair search, rejection and Huber weights of mesh.ICPPointToPlane),
-// accumulated with mesh.PlaneSystem in coordinates centred on the moved
-// source centroid and scaled by the source's RMS radius, and solved by
-// mesh.PlaneSystem.Step with damping, so that a view that does not
-// constrain all six degrees of freedom still refines the others.
-func dampedICP(src, dst *mesh.Cloud, near *mesh.KDTree, init mesh.Pose, opt mesh.ICPOptions) (mesh.ICPResult, error) {
-	if len(src.Points) == 0 || len(dst.Points) == 0 {
-		return mesh.ICPResult{}, fmt.Errorf("features: ICP on an empty cloud: %w", mesh.ErrDegenerate)
-	}
-	var centroid r3.Vec
-	for _, p := range src.Points {
-		centroid = r3.Add(centroid, p)
-	}
-	centroid = r3.Scale(1/float64(len(src.Points)), centroid)
-	var rad2 float64
-	for _, p := range src.Points {
-		rad2 += r3.Norm2(r3.Sub(p, centroid))
-	}
-	scale := math.Sqrt(rad2 / float64(len(src.Points)))
-	if !(scale > 0) {
-		return mesh.ICPResult{}, fmt.Errorf("features: ICP source points coincide: %w", mesh.ErrDegenerate)
-	}
-	inv := 1 / scale
-	cosMax := math.Cos(opt.MaxNormalAngle)
-	maxD2 := opt.MaxDistance * opt.MaxDistance
-	pose := init
-	res := mesh.ICPResult{Pose: pose}
-	const slice = 256
-	parts := make([]mesh.PlaneSystem, (len(src.Points)+slice-1)/slice)
-	for it := 0; it < opt.MaxIterations; it++ {
-		c := pose.Apply(centroid)
-		par.For(len(parts), 0, func(k int) {
-			sys := &parts[k]
-			*sys = mesh.PlaneSystem{}
-			for i := k * slice; i < min((k+1)*slice, len(src.Points)); i++ {
-				p := pose.Apply(src.Points[i])
-				j, d2 := near.Nearest(p)
-				if j < 0 || d2 > maxD2 {
-					continue
-				}
-				n := dst.Normals[j]
-				if r3.Dot(pose.Rotate(src.Normals[i]), n) < cosMax {
-					continue
-				}
-				q := dst.Points[j]
-				w := 1.0
-				if opt.HuberDelta > 0 {
-					if r := math.Abs(r3.Dot(r3.Sub(p, q), n)); r > opt.HuberDelta {
-						w = opt.HuberDelta / r
-					}
-				}
-				sys.Add(r3.Scale(inv, r3.Sub(p, c)), r3.Scale(inv, r3.Sub(q, c)), n, w)
-			}
-		})
-		var sys mesh.PlaneSystem
-		for k := range parts {
-			sys.Merge(&parts[k])
-		}
-		res.Pairs = sys.Pairs
-		res.InlierRatio = float64(sys.Pairs) / float64(len(src.Points))
-		res.RMS = sys.RMS() * scale
-		if sys.Pairs < opt.MinPairs {
-			return res, fmt.Errorf("features: ICP step %d found %d pairs within %.4g m, need %d: %w", it+1, sys.Pairs, opt.MaxDistance, opt.MinPairs, mesh.ErrDegenerate)
-		}
-		step, angle, _, ok := sys.Step(icpDamping * sys.W)
-		if !ok {
-			return res, fmt.Errorf("features: ICP step %d: singular system: %w", it+1, mesh.ErrDegenerate)
-		}
-		// The step acts on centred, scaled coordinates: x ↦ c + s·(R·(x−c)/s + t)
-		// = R·x + (c − R·c + s·t).
-		shift := scale * r3.Norm(step.T)
-		full := mesh.Pose{R: step.R, T: r3.Add(r3.Sub(c, step.R.MulVec(c)), r3.Scale(scale, step.T))}
-		pose = full.Mul(pose).Orthonormalize()
-		res.Pose = pose
-		res.Iterations = it + 1
-		if angle < opt.StopRotation && shift < opt.StopTranslation {
-			res.Converged = true
-			break
-		}
-	}
-	return res, nil
-}

@@ -171,12 +171,13 @@ func TestVoteRecoversPose(t *testing.T) {
 	}
 }
 
-// TestDampedICPMatchesMeshICP checks the refinement's damped ICP against
-// mesh.ICPPointToPlane (the undamped solver it shares its pair rules
-// with) on views that constrain all six degrees of freedom: both must
-// reach the same pose. On views that leave a direction free, mesh's
-// solver refuses the singular system, and the damped one must not
-// wander: its error stays within the starting error.
+// TestDampedICPMatchesMeshICP checks the refinement's damped ICP
+// (mesh.ICPPointToPlane with ICPOptions.Damping = icpDamping) against
+// the undamped solver on views that constrain all six degrees of
+// freedom: both must reach the same pose. On views that leave a
+// direction free, the undamped solver refuses the singular system, and
+// the damped one must not wander: its error stays within the starting
+// error.
 func TestDampedICPMatchesMeshICP(t *testing.T) {
 	part := blockPart()
 	model := modelOf(t, part)
@@ -193,7 +194,9 @@ func TestDampedICPMatchesMeshICP(t *testing.T) {
 		init := mesh.PoseFromAxisAngle(randUnit(rng), 0.03, truth.T).Mul(mesh.Pose{R: truth.R})
 		e0 := addErr(pts, truth, init)
 		r1, err1 := mesh.ICPPointToPlane(model.Cloud(), scene, tree, init, opt)
-		r2, err2 := dampedICP(model.Cloud(), scene, tree, init, opt)
+		damped := opt
+		damped.Damping = icpDamping
+		r2, err2 := mesh.ICPPointToPlane(model.Cloud(), scene, tree, init, damped)
 		if err2 != nil {
 			t.Fatalf("view %d: %v", v, err2)
 		}

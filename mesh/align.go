@@ -147,6 +147,13 @@ type ICPOptions struct {
 	// MinPairs is the fewest accepted pairs with which a step is taken.
 	// DEFAULT: 6
 	MinPairs int
+	// Damping adds Damping·Σw to the diagonal of each step's normal
+	// matrix (Tikhonov), in the centred coordinates scaled by the source's
+	// RMS radius: a view that leaves some motion free (a flat face, a
+	// symmetric part) still refines the rest instead of failing. 0
+	// refuses such a view with an error wrapping ErrDegenerate.
+	// DEFAULT: 0
+	Damping float64
 	// StopRotation and StopTranslation end the iteration when a step
 	// moves less than both (radians, metres).
 	// DEFAULT: 1e-6 rad, 1e-7 m
@@ -308,6 +315,24 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 	if !(opt.MaxDistance > 0) {
 		return ICPResult{}, fmt.Errorf("mesh: ICP MaxDistance must be positive, is %v", opt.MaxDistance)
 	}
+	// The system is built in coordinates centred on the moved source
+	// centroid and scaled by the source's RMS radius, so that rotation
+	// and translation have comparable units (the solution is the same;
+	// the conditioning, and the meaning of Damping, are not).
+	var centroid r3.Vec
+	for _, p := range src.Points {
+		centroid = r3.Add(centroid, p)
+	}
+	centroid = r3.Scale(1/float64(len(src.Points)), centroid)
+	var rad2 float64
+	for _, p := range src.Points {
+		rad2 += r3.Norm2(r3.Sub(p, centroid))
+	}
+	scale := math.Sqrt(rad2 / float64(len(src.Points)))
+	if !(scale > 0) {
+		return ICPResult{}, fmt.Errorf("mesh: ICP source points coincide: %w", ErrDegenerate)
+	}
+	inv := 1 / scale
 	useNormals := len(src.Normals) == len(src.Points)
 	cosMax := math.Cos(opt.MaxNormalAngle)
 	maxD2 := opt.MaxDistance * opt.MaxDistance
@@ -318,6 +343,7 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 	const slice = 512
 	parts := make([]PlaneSystem, (len(src.Points)+slice-1)/slice)
 	for it := 0; it < opt.MaxIterations; it++ {
+		c := pose.Apply(centroid)
 		par.For(len(parts), 0, func(k int) {
 			sys := &parts[k]
 			*sys = PlaneSystem{}
@@ -331,13 +357,14 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 				if useNormals && r3.Dot(pose.Rotate(src.Normals[i]), n) < cosMax {
 					continue
 				}
+				q := dst.Points[j]
 				w := 1.0
 				if opt.HuberDelta > 0 {
-					if r := math.Abs(r3.Dot(r3.Sub(p, dst.Points[j]), n)); r > opt.HuberDelta {
+					if r := math.Abs(r3.Dot(r3.Sub(p, q), n)); r > opt.HuberDelta {
 						w = opt.HuberDelta / r
 					}
 				}
-				sys.Add(p, dst.Points[j], n, w)
+				sys.Add(r3.Scale(inv, r3.Sub(p, c)), r3.Scale(inv, r3.Sub(q, c)), n, w)
 			}
 		})
 		var sys PlaneSystem
@@ -346,15 +373,19 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 		}
 		res.Pairs = sys.Pairs
 		res.InlierRatio = float64(sys.Pairs) / float64(len(src.Points))
-		res.RMS = sys.RMS()
+		res.RMS = sys.RMS() * scale
 		if sys.Pairs < opt.MinPairs {
 			return res, fmt.Errorf("mesh: ICP step %d found %d pairs within %.4g m, need %d: %w", it+1, sys.Pairs, opt.MaxDistance, opt.MinPairs, ErrDegenerate)
 		}
-		step, angle, shift, ok := sys.Step(0)
+		step, angle, _, ok := sys.Step(opt.Damping * sys.W)
 		if !ok {
 			return res, fmt.Errorf("mesh: ICP step %d: the pairs do not constrain all six degrees of freedom: %w", it+1, ErrDegenerate)
 		}
-		pose = step.Mul(pose).Orthonormalize()
+		// The step acts on the centred, scaled coordinates:
+		// x ↦ c + s·(R·(x − c)/s + t) = R·x + (c − R·c + s·t).
+		shift := scale * r3.Norm(step.T)
+		full := Pose{R: step.R, T: r3.Add(r3.Sub(c, step.R.MulVec(c)), r3.Scale(scale, step.T))}
+		pose = full.Mul(pose).Orthonormalize()
 		res.Pose = pose
 		res.Iterations = it + 1
 		if angle < opt.StopRotation && shift < opt.StopTranslation {
