@@ -534,14 +534,11 @@ func (f *fuser) turntablePass(ctx context.Context, point, up r3.Vec, rel func(in
 	pf := f.prefetch(ctx, usable)
 	var refineSum float64
 	for k, idx := range usable {
-		fr, err := pf.take()
+		fr, err := f.next(ctx, pf, idx)
 		if err != nil {
-			if ctx.Err() != nil {
-				return ctx.Err()
-			}
-			if err := f.skip(idx, err.Error()); err != nil {
-				return err
-			}
+			return err
+		}
+		if fr == nil {
 			continue
 		}
 		a, ok := rel(idx)
@@ -551,12 +548,7 @@ func (f *fuser) turntablePass(ctx context.Context, point, up r3.Vec, rel func(in
 			}
 			continue
 		}
-		if reason := f.lacksDepth(fr); reason != "" {
-			if err := f.skip(idx, reason); err != nil {
-				return err
-			}
-			continue
-		}
+
 		pose := TurntablePose(point, up, a)
 		f.alloc = f.mask(fr, pose, f.alloc)
 		if tr != nil && f.rep.FramesUsed > 0 {
@@ -670,6 +662,23 @@ func (f *fuser) plateCloud(fr *Frame) *mesh.Cloud {
 	return c
 }
 
+// next takes frame idx from the prefetcher. A frame that cannot be
+// read, or that has almost no depth in range (lacksDepth), is skipped
+// with its reason and comes back nil; in strict mode that is an error.
+func (f *fuser) next(ctx context.Context, pf *prefetcher, idx int) (*Frame, error) {
+	fr, err := pf.take()
+	if err != nil {
+		if ctx.Err() != nil {
+			return nil, ctx.Err()
+		}
+		return nil, f.skip(idx, err.Error())
+	}
+	if reason := f.lacksDepth(fr); reason != "" {
+		return nil, f.skip(idx, reason)
+	}
+	return fr, nil
+}
+
 // lacksDepth says why a frame cannot be fused when fewer than 1% of its
 // pixels have a depth inside the volume's range (a covered lens, a
 // saturated projector, a frame of the wrong scene), or "".
@@ -758,22 +767,14 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 	pose, prev := worldFromFirst, worldFromFirst
 	placed := 0
 	for k, idx := range usable {
-		fr, err := pf.take()
+		fr, err := f.next(ctx, pf, idx)
 		if err != nil {
-			if ctx.Err() != nil {
-				return ctx.Err()
-			}
-			if err := f.skip(idx, err.Error()); err != nil {
-				return err
-			}
+			return err
+		}
+		if fr == nil {
 			continue
 		}
-		if reason := f.lacksDepth(fr); reason != "" {
-			if err := f.skip(idx, reason); err != nil {
-				return err
-			}
-			continue
-		}
+
 		switch {
 		case given:
 			pose = fr.CamToWorld
