@@ -1,6 +1,9 @@
 package reconstruct
 
 import (
+	"image"
+	"math"
+
 	"gonum.org/v1/gonum/spatial/r3"
 
 	"github.com/scanfold/scanfold/internal/par"
@@ -51,4 +54,53 @@ func (r ROI) Mask(depth []float32, intr mesh.Intrinsics, camToWorld mesh.Pose, d
 		}
 	})
 	return dst
+}
+
+// ImageRect returns the pixels that a point within margin of the region
+// can project to, seen from camToWorld, by the nearest-pixel rule
+// floor(f·x/z + c + 0.5) that Integrate uses: the bounding rectangle of
+// the projected corners of a square prism around the region's cylinder,
+// widened by margin on every side (the prism is convex and holds the
+// cylinder, so its projection holds the cylinder's). When a corner lies
+// nearer than minZ in depth, where a projection no longer bounds
+// anything, it returns the whole image.
+func (r ROI) ImageRect(intr mesh.Intrinsics, camToWorld mesh.Pose, margin, minZ float64) image.Rectangle {
+	whole := image.Rect(0, 0, intr.Width, intr.Height)
+	n := r.Plane.Normal
+	// Two unit vectors across the axis.
+	u := r3.Cross(n, r3.Vec{X: 1})
+	if r3.Norm2(u) < 0.1 {
+		u = r3.Cross(n, r3.Vec{Y: 1})
+	}
+	u = mesh.Normalize(u)
+	w := r3.Cross(n, u)
+	rad := r.Radius + margin
+	foot := r3.Sub(r.Centre, r3.Scale(r.Plane.Distance(r.Centre), n))
+	worldToCam := camToWorld.Inv()
+	u0, u1, v0, v1 := math.Inf(1), math.Inf(-1), math.Inf(1), math.Inf(-1)
+	for c := 0; c < 8; c++ {
+		h := r.Bottom - margin
+		if c&4 != 0 {
+			h = r.Top + margin
+		}
+		su, sw := -rad, -rad
+		if c&1 != 0 {
+			su = rad
+		}
+		if c&2 != 0 {
+			sw = rad
+		}
+		p := worldToCam.Apply(r3.Add(foot, r3.Add(r3.Scale(h, n), r3.Add(r3.Scale(su, u), r3.Scale(sw, w)))))
+		if p.Z < minZ {
+			return whole
+		}
+		x, y := intr.Fx*p.X/p.Z+intr.Cx+0.5, intr.Fy*p.Y/p.Z+intr.Cy+0.5
+		u0, u1 = math.Min(u0, x), math.Max(u1, x)
+		v0, v1 = math.Min(v0, y), math.Max(v1, y)
+	}
+	// Clamp in floating point first: a corner just in front of the
+	// camera projects far beyond any int.
+	clampTo := func(v float64, hi int) int { return int(math.Max(-1, math.Min(float64(hi), math.Floor(v)))) }
+	rect := image.Rect(clampTo(u0, intr.Width), clampTo(v0, intr.Height), clampTo(u1, intr.Width)+1, clampTo(v1, intr.Height)+1)
+	return rect.Intersect(whole)
 }

@@ -448,6 +448,15 @@ func (v *Volume) Integrate(ctx context.Context, im *DepthImage, camToWorld mesh.
 	return st, nil
 }
 
+// AllocReach is how far from the measured surface point of a pixel that
+// allocates blocks a voxel of those blocks can lie: the truncation μ
+// along the ray to the band's sample, plus a block's diagonal. Every
+// voxel of a volume whose blocks were all allocated from pixels whose
+// points lie in a region is within AllocReach of that region.
+func (v *Volume) AllocReach() float64 {
+	return v.mu + math.Sqrt(3)*v.opt.VoxelSize*BlockSide
+}
+
 // KeyOf returns the key of the block holding world point p.
 func (v *Volume) KeyOf(p r3.Vec) BlockKey {
 	s := v.opt.VoxelSize * BlockSide
