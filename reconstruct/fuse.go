@@ -296,6 +296,9 @@ type fuser struct {
 	// scratch reused from frame to frame
 	alloc           []bool
 	weights, behind []float32
+	// wholeWeights: weigh every pixel, not only those that can reach the
+	// part volume (the handheld scene volume reuses the weights)
+	wholeWeights bool
 }
 
 func (f *fuser) progress(stage string, done, total int) {
@@ -395,6 +398,10 @@ func (f *fuser) integrate(ctx context.Context, fr *Frame, camToWorld mesh.Pose, 
 	wo := f.opt.Weights
 	if wo.BehindMin == 0 {
 		wo.BehindMin = 1.75 * f.opt.TSDF.VoxelSize
+	}
+	if !f.wholeWeights {
+		// Every voxel of the part lies within AllocReach of the region.
+		wo.Region = f.roi.ImageRect(fr.Intr, camToWorld, f.part.AllocReach(), f.opt.TSDF.MinDepth)
 	}
 	f.weights, f.behind = MeasurementBands(fr.Depth, fr.Intr, wo, f.weights, f.behind, true)
 	im.Weight, im.Behind = f.weights, f.behind
@@ -762,6 +769,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 		if tr, err = NewTracker(scene, f.first.Intr, f.opt.Track); err != nil {
 			return err
 		}
+		f.wholeWeights = true
 	}
 	pf := f.prefetch(ctx, usable)
 	pose, prev := worldFromFirst, worldFromFirst
