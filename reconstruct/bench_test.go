@@ -114,6 +114,7 @@ func turntableFrames(b *testing.B) *benchFrames {
 	f := &fuser{opt: opt, roi: rep.ROI}
 	wo := opt.Weights
 	wo.BehindMin = 1.75 * opt.TSDF.VoxelSize
+	reach := 4*opt.TSDF.VoxelSize + math.Sqrt(3)*opt.TSDF.VoxelSize*BlockSide // Volume.AllocReach
 	for _, idx := range sw.Usable() {
 		fr, err := sw.Frame(idx)
 		if err != nil {
@@ -121,6 +122,7 @@ func turntableFrames(b *testing.B) *benchFrames {
 		}
 		pose := rep.CamToWorld[idx]
 		im := fr.DepthImage()
+		wo.Region = rep.ROI.ImageRect(fr.Intr, pose, reach, opt.TSDF.MinDepth)
 		im.Weight, im.Behind = MeasurementBands(fr.Depth, fr.Intr, wo, nil, nil, true)
 		im.Alloc = f.mask(fr, pose, nil)
 		bf.images = append(bf.images, im)
@@ -242,7 +244,9 @@ func BenchmarkExtract(b *testing.B) {
 
 // BenchmarkFrameStages times the per-frame stages of a turntable Fuse
 // one by one on the sweep's frames: PNG decode (depth and colour),
-// colour repacking, weights and bands, the region-of-interest mask.
+// colour repacking, weights and bands (over the whole image, and over
+// the part's rectangle as Fuse computes them for a turntable), the
+// region-of-interest mask.
 func BenchmarkFrameStages(b *testing.B) {
 	bf := turntableFrames(b)
 	dir := benchSweep(b, RigTurntable, benchTurntableFrames)
@@ -282,6 +286,14 @@ func BenchmarkFrameStages(b *testing.B) {
 		o := wo
 		o.Workers = workers
 		stage(fmt.Sprintf("weights/workers=%d", max(workers, runtime.GOMAXPROCS(0)*(1-workers))), func(int) {
+			wt, bh = MeasurementBands(fr.Depth, fr.Intr, o, wt, bh, true)
+		})
+	}
+	{
+		var wt, bh []float32
+		o := wo
+		o.Region = bf.roi.ImageRect(fr.Intr, bf.poses[n/3], bf.final.AllocReach(), opt.TSDF.MinDepth)
+		stage("weights/region", func(int) {
 			wt, bh = MeasurementBands(fr.Depth, fr.Intr, o, wt, bh, true)
 		})
 	}
