@@ -259,6 +259,8 @@ type Report struct {
 	Coverage   *CoverageSummary `json:"coverage,omitempty"`
 	Confusers  []Confuser       `json:"confusers,omitempty"`
 	Comparison *Comparison      `json:"comparison,omitempty"`
+	// Check holds the check's own figures (CheckResult.Report).
+	Check *CheckSummary `json:"check,omitempty"`
 	// Timings, Settings and Notes record how the report was made.
 	Timings  []Timing  `json:"timings,omitempty"`
 	Settings []Setting `json:"settings,omitempty"`

@@ -74,6 +74,9 @@ type ReportInputs struct {
 	// Views are the check views for the contact sheet, drawn with Model
 	// unless a view names its own.
 	Views []CheckView
+	// Extra are further pictures, shown after the others (their File
+	// names must not clash with the standard ones).
+	Extra []ExtraPicture
 }
 
 // reportPage is what the template sees.
@@ -158,7 +161,21 @@ func WriteReport(dir string, r *Report, in ReportInputs, opt PictureOptions) err
 				return err
 			}
 		}
-		return putComparison(put, r.Comparison, opt)
+		if err := putComparison(put, r.Comparison, opt); err != nil {
+			return err
+		}
+		for _, x := range in.Extra {
+			if x.Image == nil {
+				continue
+			}
+			if filepath.Base(x.File) != x.File || filepath.Ext(x.File) != ".png" {
+				return fmt.Errorf("validate: extra picture file %q: want a plain .png file name", x.File)
+			}
+			if err := put(x.File, x.Title, x.Caption, x.Image); err != nil {
+				return err
+			}
+		}
+		return nil
 	})
 }
 

@@ -1,0 +1,281 @@
+package validate
+
+import (
+	"fmt"
+	"math"
+	"sort"
+
+	"gonum.org/v1/gonum/spatial/r3"
+
+	"github.com/scanfold/scanfold/mesh"
+)
+
+// Opening is one hole in a surface: a closed loop of boundary edges
+// (edges used by one face only), with the patch that would close it.
+type Opening struct {
+	// Edges is the number of boundary edges in the loop and Perimeter
+	// their length (metres).
+	Edges     int     `json:"edges"`
+	Perimeter float64 `json:"perimeter_m"`
+	// Area is the area of the patch that closes the loop (a fan of
+	// triangles from the loop's mean vertex): the size of the missing
+	// surface as far as its rim shows it (m²). A missing region that
+	// bulges (a lost cap) has more area than its patch.
+	Area float64 `json:"area_m2"`
+	// Centroid is the patch's area centroid and Normal its outward unit
+	// normal (the direction the missing surface would face; zero when
+	// the patch's normals cancel).
+	Centroid r3.Vec `json:"centroid_m"`
+	Normal   r3.Vec `json:"normal"`
+	// MinZ and MaxZ are the heights (part frame z) of the rim's lowest
+	// and highest vertex.
+	MinZ float64 `json:"min_z_m"`
+	MaxZ float64 `json:"max_z_m"`
+	// OnSupport reports that the whole rim lies on the support the part
+	// stood on (within the tolerance of FindOpenings): the face the part
+	// rested on, which one sweep cannot see.
+	OnSupport bool `json:"on_support"`
+	// Closed is false for a chain of boundary edges that did not return
+	// to its start (a non-manifold rim); its patch closes it with a
+	// straight edge.
+	Closed bool `json:"closed"`
+
+	loop []uint32
+}
+
+// Openings is what FindOpenings found.
+type Openings struct {
+	// List holds the openings, largest patch area first.
+	List []Opening `json:"openings"`
+	// SurfaceArea is the area of the surface (m²).
+	SurfaceArea float64 `json:"surface_area_m2"`
+	// HoleArea sums the patches of openings not on the support and
+	// HoleFraction is HoleArea / (SurfaceArea + HoleArea + SupportArea):
+	// the share of the closed surface that is missing, apart from the
+	// resting face.
+	HoleArea     float64 `json:"hole_area_m2"`
+	HoleFraction float64 `json:"hole_fraction"`
+	// SupportArea sums the patches of openings on the support (the face
+	// the part stood on).
+	SupportArea float64 `json:"support_area_m2"`
+	// SupportZ is the support's height in the part frame (NaN when not
+	// known), and SupportGap how far above it the surface's lowest
+	// vertex lies (metres; 0 when the surface reaches the support or the
+	// support is not known). Height is the surface's extent along z.
+	SupportZ   float64 `json:"-"`
+	SupportGap float64 `json:"support_gap_m"`
+	Height     float64 `json:"height_m"`
+}
+
+// FindOpenings traces the boundary loops of m (a surface in its part
+// frame, z up, wound outward) and measures the patches that would close
+// them. supportZ is the height of the plane the part stood on during
+// its sweep (part frame; NaN when unknown); tol the distance within
+// which a rim vertex counts as lying on it (0: 2 % of the surface's
+// height, at least 1 mm, which allows for the support crop of a fusion
+// a voxel or two above the plane).
+//
+// Loops: every boundary edge is taken in the direction its one face
+// runs it; at each vertex the loop continues along an unused outgoing
+// boundary edge (the first in vertex order where a non-manifold vertex
+// has several). The patch closing a loop is the fan (v_{i+1}, v_i, c)
+// around the loop's mean vertex c, which is wound like the rest of the
+// surface (the shared edge runs the other way), so its normal points
+// outward.
+//
+// A closed (watertight) surface has no openings. Degenerate input: an
+// invalid mesh is an error; a mesh without faces has no openings and
+// zero area.
+func FindOpenings(m *mesh.Mesh, supportZ, tol float64) (*Openings, error) {
+	if m == nil {
+		return nil, fmt.Errorf("validate: openings of a nil mesh")
+	}
+	if err := m.Validate(); err != nil {
+		return nil, fmt.Errorf("validate: openings: %w", err)
+	}
+	out := &Openings{SurfaceArea: m.Area(), SupportZ: supportZ}
+	lo, hi := math.Inf(1), math.Inf(-1)
+	used := make([]bool, len(m.Vertices))
+	for _, f := range m.Faces {
+		for _, v := range f {
+			used[v] = true
+		}
+	}
+	for i, v := range m.Vertices {
+		if used[i] {
+			lo, hi = math.Min(lo, v.Z), math.Max(hi, v.Z)
+		}
+	}
+	if lo > hi {
+		return out, nil
+	}
+	out.Height = hi - lo
+	if tol <= 0 {
+		tol = math.Max(0.02*out.Height, 0.001)
+	}
+	if !math.IsNaN(supportZ) {
+		out.SupportGap = math.Max(0, lo-supportZ)
+		if out.SupportGap <= tol {
+			out.SupportGap = 0
+		}
+	}
+
+	// Directed boundary edges: an undirected edge used once, in its
+	// face's direction.
+	type dirEdge struct{ a, b uint32 }
+	count := make(map[[2]uint32]int, 3*len(m.Faces))
+	key := func(a, b uint32) [2]uint32 {
+		if a > b {
+			a, b = b, a
+		}
+		return [2]uint32{a, b}
+	}
+	for _, f := range m.Faces {
+		if f[0] == f[1] || f[1] == f[2] || f[0] == f[2] {
+			continue
+		}
+		for k := 0; k < 3; k++ {
+			count[key(f[k], f[(k+1)%3])]++
+		}
+	}
+	var edges []dirEdge
+	for _, f := range m.Faces {
+		if f[0] == f[1] || f[1] == f[2] || f[0] == f[2] {
+			continue
+		}
+		for k := 0; k < 3; k++ {
+			a, b := f[k], f[(k+1)%3]
+			if count[key(a, b)] == 1 {
+				edges = append(edges, dirEdge{a, b})
+			}
+		}
+	}
+	sort.Slice(edges, func(i, j int) bool {
+		if edges[i].a != edges[j].a {
+			return edges[i].a < edges[j].a
+		}
+		return edges[i].b < edges[j].b
+	})
+	// Outgoing edges per vertex, in order.
+	start := map[uint32]int{}
+	for i := len(edges) - 1; i >= 0; i-- {
+		start[edges[i].a] = i
+	}
+	taken := make([]bool, len(edges))
+	next := func(v uint32) int {
+		i, ok := start[v]
+		if !ok {
+			return -1
+		}
+		for ; i < len(edges) && edges[i].a == v; i++ {
+			if !taken[i] {
+				return i
+			}
+		}
+		return -1
+	}
+	for i := range edges {
+		if taken[i] {
+			continue
+		}
+		loop := []uint32{edges[i].a}
+		taken[i] = true
+		cur := edges[i].b
+		closed := false
+		for len(loop) <= len(edges) {
+			if cur == loop[0] {
+				closed = true
+				break
+			}
+			loop = append(loop, cur)
+			j := next(cur)
+			if j < 0 {
+				break
+			}
+			taken[j] = true
+			cur = edges[j].b
+		}
+		op := measureOpening(m, loop)
+		op.Closed = closed
+		op.OnSupport = !math.IsNaN(supportZ) && op.MaxZ-supportZ <= tol && op.MinZ-supportZ >= -tol
+		if op.OnSupport {
+			out.SupportArea += op.Area
+		} else {
+			out.HoleArea += op.Area
+		}
+		out.List = append(out.List, op)
+	}
+	sort.SliceStable(out.List, func(i, j int) bool { return out.List[i].Area > out.List[j].Area })
+	if total := out.SurfaceArea + out.HoleArea + out.SupportArea; total > 0 {
+		out.HoleFraction = out.HoleArea / total
+	}
+	return out, nil
+}
+
+// measureOpening measures the fan patch of one boundary loop (the loop
+// runs the way the surface's faces run its edges).
+func measureOpening(m *mesh.Mesh, loop []uint32) Opening {
+	op := Opening{Edges: len(loop), loop: loop, MinZ: math.Inf(1), MaxZ: math.Inf(-1)}
+	var c r3.Vec
+	for i, v := range loop {
+		p := m.Vertices[v]
+		c = r3.Add(c, p)
+		op.MinZ, op.MaxZ = math.Min(op.MinZ, p.Z), math.Max(op.MaxZ, p.Z)
+		q := m.Vertices[loop[(i+1)%len(loop)]]
+		op.Perimeter += r3.Norm(r3.Sub(q, p))
+	}
+	c = r3.Scale(1/float64(len(loop)), c)
+	var nsum, csum r3.Vec
+	for i := range loop {
+		a := m.Vertices[loop[(i+1)%len(loop)]]
+		b := m.Vertices[loop[i]]
+		n := r3.Cross(r3.Sub(b, a), r3.Sub(c, a)) // (a, b, c) = (v_{i+1}, v_i, c)
+		ar := r3.Norm(n) / 2
+		op.Area += ar
+		nsum = r3.Add(nsum, r3.Scale(0.5, n))
+		csum = r3.Add(csum, r3.Scale(ar/3, r3.Add(r3.Add(a, b), c)))
+	}
+	if op.Area > 0 {
+		op.Centroid = r3.Scale(1/op.Area, csum)
+	} else {
+		op.Centroid = c
+	}
+	if r3.Norm(nsum) > 1e-3*op.Area {
+		op.Normal = mesh.Normalize(nsum)
+	}
+	return op
+}
+
+// PatchedMesh returns a copy of m with the patches of the openings
+// added as faces of their own vertices, coloured patchColor (the rest
+// keeps m's colours, or modelColor where m has none): a picture of
+// what is missing.
+func (o *Openings) PatchedMesh(m *mesh.Mesh, modelColor, patchColor mesh.RGB) *mesh.Mesh {
+	out := m.Clone()
+	out.Normals = nil
+	if out.Colors == nil {
+		out.Colors = make([]mesh.RGB, len(out.Vertices))
+		for i := range out.Colors {
+			out.Colors[i] = modelColor
+		}
+	}
+	for _, op := range o.List {
+		base := uint32(len(out.Vertices))
+		for _, v := range op.loop {
+			out.Vertices = append(out.Vertices, m.Vertices[v])
+			out.Colors = append(out.Colors, patchColor)
+		}
+		var c r3.Vec
+		for _, v := range op.loop {
+			c = r3.Add(c, m.Vertices[v])
+		}
+		out.Vertices = append(out.Vertices, r3.Scale(1/float64(len(op.loop)), c))
+		out.Colors = append(out.Colors, patchColor)
+		ci := uint32(len(out.Vertices) - 1)
+		n := uint32(len(op.loop))
+		for i := uint32(0); i < n; i++ {
+			out.Faces = append(out.Faces, mesh.Face{base + (i+1)%n, base + i, ci})
+		}
+	}
+	return out
+}

@@ -1,0 +1,382 @@
+package validate
+
+import (
+	"fmt"
+	"math"
+	"strings"
+
+	"gonum.org/v1/gonum/spatial/r3"
+)
+
+// VerdictRules holds every threshold the verdict of a check rests on,
+// in this one place, each with the reason it has its value. A finding
+// argues for review (a person should look before the part goes to the
+// cell) or rescan (the model is not good enough); the verdict is the
+// worst finding's, ready when there is none. Findings that only inform
+// (a symmetry) are reasons with the verdict ready.
+//
+// The values are our choices unless a source is named; the tests check
+// that the good demo models pass them and the deliberately bad ones do
+// not, each for its own reason.
+type VerdictRules struct {
+	// RescanRecall: below this share of synthetic views in which the
+	// point-difference scorer picks a right pose, rescan — the cell
+	// would miss the part in more than 1 view in 5, and retries would
+	// eat its cycle time.
+	// DEFAULT: 0.8
+	RescanRecall float64
+	// ReviewRecall: below this, review — the check's target recall
+	// (ADD/ADD-S < 10 % of the diameter in at least 9 views in 10, with
+	// clutter and occlusion) is not met.
+	// DEFAULT: 0.9
+	ReviewRecall float64
+	// MinMargin: a point-scorer margin (5th percentile of right scores
+	// less the 95th of wrong ones) below this means the bulk of the two
+	// distributions overlap: any acceptance threshold either rejects
+	// right poses or accepts wrong ones. Review.
+	// DEFAULT: 0
+	MinMargin float64
+	// MinAUC: a point-scorer ROC area below this means the score ranks
+	// a wrong hypothesis above a right one too often (more than 1 pair
+	// in 20). Review.
+	// DEFAULT: 0.95
+	MinAUC float64
+	// MinDiameter and MaxDiameter bound a plausible part (metres): a
+	// model outside is in the wrong unit (a millimetre file read as
+	// metres is 1000× too large) or not a part at all. Rescan (or fix
+	// the unit).
+	// DEFAULT: 0.005 and 2
+	MinDiameter, MaxDiameter float64
+	// ReviewHoleFraction and RescanHoleFraction bound the share of the
+	// closed surface missing in holes (FindOpenings, the resting face
+	// apart). Above the first, a hole is larger than about a twentieth
+	// of a typical compact part's face: the cloud lacks samples there
+	// and the scorer cannot tell the part's surface from free space
+	// through the hole. Above the second, rescan.
+	// DEFAULT: 0.005 and 0.03
+	ReviewHoleFraction, RescanHoleFraction float64
+	// SupportGap: when the model's lowest point lies higher above the
+	// support it stood on than max(MinSupportGap, SupportGapFraction ×
+	// its height), its lower part was lost (cropped with the support,
+	// never seen): rescan. The minimum allows for the support crop of a
+	// fusion, under a voxel or two (2 mm voxels).
+	// DEFAULT: 0.003 m and 0.05
+	MinSupportGap, SupportGapFraction float64
+	// ReviewSeen and RescanSeen bound the share of the coverage surface
+	// the sweep saw, the face it stood on apart (when the support is
+	// known): below the first, review; below the second, rescan.
+	// DEFAULT: 0.9 and 0.7
+	ReviewSeen, RescanSeen float64
+	// MaxScaleError: a scale against the reference off by more than
+	// this share means a miscalibrated camera or a wrong unit: every
+	// grasp would be off by as much. Depth cameras after calibration
+	// typically keep their scale error well under 1 % (from memory, not
+	// from a datasheet). Rescan.
+	// DEFAULT: 0.01
+	MaxScaleError float64
+	// ReviewFScore and RescanFScore bound the F-score of the model
+	// against the reference at the comparison's τ (Knapitsch et al.
+	// 2017): below the first the shape departs from the drawing in
+	// places (review the deviation map); below the second, rescan.
+	// DEFAULT: 0.9 and 0.6
+	ReviewFScore, RescanFScore float64
+	// RescanCompleteness: below this share of the reference's surface
+	// within τ of the model (the comparison's recall), the model lacks
+	// part of the part (an unseen underside): rescan.
+	// DEFAULT: 0.85
+	RescanCompleteness float64
+	// RescanRealRecall: below this share of the sweep's own frames in
+	// which the best hypothesis is where the fusion put the part, the
+	// model does not match the real part: rescan.
+	// DEFAULT: 0.8
+	RescanRealRecall float64
+	// ReviewColorMismatch: above this share of the model's visible,
+	// depth-matched points whose colour differs from the real frames'
+	// (ColorDistance > 0.2, the symmetry detector's threshold), the
+	// model's colours are smeared or shifted: the colour cue of the
+	// scorer will mislead. Review. On the demo parts' renders a true
+	// colouring mismatches on 3–12 % of points (shading and noise).
+	// DEFAULT: 0.25
+	ReviewColorMismatch float64
+	// ConfuserShare: another part is named as a confuser when, in at
+	// least this share of the scenes rendered for the pair, the cell
+	// looking for one accepts a pose of it in a scene of the other
+	// (best score at or above its acceptance threshold). Review.
+	// DEFAULT: 0.34 (one scene in three)
+	ConfuserShare float64
+	// ConfuserRatio: a part whose own acceptance threshold is not known
+	// (a catalog part without one) is taken to accept a hypothesis
+	// scoring at least this share of its median score at its true pose
+	// in clean scenes. On the demo parts the calibrated threshold lies
+	// at 0.4–0.6 of that median.
+	// DEFAULT: 0.5
+	ConfuserRatio float64
+}
+
+// DefaultVerdictRules returns the documented defaults.
+func DefaultVerdictRules() VerdictRules {
+	return VerdictRules{
+		RescanRecall:        0.8,
+		ReviewRecall:        0.9,
+		MinMargin:           0,
+		MinAUC:              0.95,
+		MinDiameter:         0.005,
+		MaxDiameter:         2,
+		ReviewHoleFraction:  0.005,
+		RescanHoleFraction:  0.03,
+		MinSupportGap:       0.003,
+		SupportGapFraction:  0.05,
+		ReviewSeen:          0.9,
+		RescanSeen:          0.7,
+		MaxScaleError:       0.01,
+		ReviewFScore:        0.9,
+		RescanFScore:        0.6,
+		RescanCompleteness:  0.85,
+		RescanRealRecall:    0.8,
+		ReviewColorMismatch: 0.25,
+		ConfuserShare:       0.34,
+		ConfuserRatio:       0.5,
+	}
+}
+
+// Validate reports rules out of range.
+func (r VerdictRules) Validate() error {
+	unit := []float64{r.RescanRecall, r.ReviewRecall, r.MinAUC, r.ReviewHoleFraction, r.RescanHoleFraction,
+		r.SupportGapFraction, r.ReviewSeen, r.RescanSeen, r.ReviewFScore, r.RescanFScore, r.RescanCompleteness,
+		r.RescanRealRecall, r.ReviewColorMismatch, r.ConfuserShare, r.ConfuserRatio}
+	for _, v := range unit {
+		if !(v >= 0 && v <= 1) {
+			return fmt.Errorf("validate: verdict rule %v outside [0, 1]", v)
+		}
+	}
+	if !(r.MinDiameter > 0 && r.MinDiameter < r.MaxDiameter) || math.IsInf(r.MaxDiameter, 0) {
+		return fmt.Errorf("validate: verdict diameters %v..%v", r.MinDiameter, r.MaxDiameter)
+	}
+	if !(r.MinSupportGap >= 0) || !(r.MaxScaleError >= 0) || math.IsNaN(r.MinMargin) {
+		return fmt.Errorf("validate: verdict MinSupportGap %v, MaxScaleError %v, MinMargin %v", r.MinSupportGap, r.MaxScaleError, r.MinMargin)
+	}
+	return nil
+}
+
+// Reason codes of a check.
+const (
+	CodeUnit             = "implausible-size"
+	CodeLowRecall        = "low-recall"
+	CodeThinMargin       = "thin-margin"
+	CodeLowAUC           = "poor-separation"
+	CodeHoles            = "holes"
+	CodeMissingUnderside = "missing-underside"
+	CodeRestingFace      = "resting-face-unseen"
+	CodeLowCoverage      = "low-coverage"
+	CodeScale            = "scale-off"
+	CodeShape            = "shape-deviation"
+	CodeIncomplete       = "incomplete"
+	CodeRealFrames       = "real-frames-miss"
+	CodeColorMismatch    = "color-mismatch"
+	CodeConfuser         = "confuser"
+	CodeSymmetric        = "symmetric"
+	CodeColorBreaks      = "color-breaks-symmetry"
+	CodeColorSymmetric   = "color-keeps-symmetry"
+	CodeNoCalibration    = "no-calibration"
+)
+
+// Judge returns the findings of a check by the rules, worst first in
+// the order the rules are listed.
+func (r VerdictRules) Judge(res *CheckResult) []Reason {
+	var out []Reason
+	add := func(v Verdict, code, format string, args ...any) {
+		out = append(out, Reason{Verdict: v, Code: code, Message: fmt.Sprintf(format, args...)})
+	}
+	// Size first: nothing else is meaningful in the wrong unit.
+	if d := res.Diameter; d < r.MinDiameter || d > r.MaxDiameter {
+		hint := ""
+		switch {
+		case d > r.MaxDiameter && d/1000 >= r.MinDiameter && d/1000 <= r.MaxDiameter:
+			hint = " — a model in millimetres read as metres? At 1/1000 it would be " + fmtLen(d/1000)
+		case d < r.MinDiameter && d*1000 >= r.MinDiameter && d*1000 <= r.MaxDiameter:
+			hint = " — a model in metres read as kilometres, or scaled by 1/1000? At 1000× it would be " + fmtLen(d*1000)
+		}
+		add(VerdictRescan, CodeUnit, "The model is %s across, outside the %s–%s of a part a cell handles%s. Check the unit of the scan (or of --mesh-unit) and scan again.",
+			fmtLen(d), fmtLen(r.MinDiameter), fmtLen(r.MaxDiameter), hint)
+		return out
+	}
+	// Recall and separation of the cell's scorer.
+	if len(res.Views) > 0 {
+		p := res.Point
+		switch {
+		case p.Recall < r.RescanRecall:
+			add(VerdictRescan, CodeLowRecall, "The point-difference scorer found the part in %s of %d synthetic views (%s needed): the cell would miss it in more than 1 view in 5. The PPF votes put a right pose among their hypotheses in %s of views. Scan again with more views of every side.",
+				pct(p.Recall), len(res.Views), pct(r.RescanRecall), pct(res.Oracle))
+		case p.Recall < r.ReviewRecall:
+			add(VerdictReview, CodeLowRecall, "The point-difference scorer found the part in %s of %d synthetic views, short of the %s target; look at the wrong views on the contact sheet.",
+				pct(p.Recall), len(res.Views), pct(r.ReviewRecall))
+		}
+		if c := p.Calibration; c == nil {
+			add(VerdictReview, CodeNoCalibration, "No acceptance threshold could be calibrated: the views gave no right or no wrong hypotheses (%d right, %d wrong).", len(p.Right), len(p.Wrong))
+		} else {
+			if c.Gap < r.MinMargin {
+				add(VerdictReview, CodeThinMargin, "Right and wrong poses overlap in score: the 5th percentile of right scores (%.3f) lies below the 95th of wrong ones (%.3f). With the threshold %.3f the cell accepts %s of right poses and %s of wrong ones; decide which misses it can afford.",
+					c.RightP5, c.WrongP95, c.Threshold, pct(c.TrueAcceptRate), pct(c.FalseAcceptRate))
+			}
+			if c.AUC < r.MinAUC {
+				add(VerdictReview, CodeLowAUC, "The point-difference score ranks a wrong hypothesis above a right one in %s of pairs (ROC area %.3f, %.2f needed).",
+					pct(1-c.AUC), c.AUC, r.MinAUC)
+			}
+		}
+	}
+	// The model's own surface.
+	if o := res.Openings; o != nil {
+		gapLimit := math.Max(r.MinSupportGap, r.SupportGapFraction*o.Height)
+		if o.SupportGap > gapLimit {
+			add(VerdictRescan, CodeMissingUnderside, "The model stops %s above the support the part stood on (%s allowed): its lowest part was never captured or was cut away with the support. Scan again, and scan the part turned over so its underside is seen.",
+				fmtLen(o.SupportGap), fmtLen(gapLimit))
+		}
+		largest := ""
+		for _, op := range o.List {
+			if !op.OnSupport {
+				largest = fmt.Sprintf("; the largest, %s, is at %s facing %s", fmtArea(op.Area), vec3mm(op.Centroid), facing(op.Normal))
+				break
+			}
+		}
+		switch {
+		case o.HoleFraction > r.RescanHoleFraction:
+			add(VerdictRescan, CodeHoles, "The model has holes covering %s of its surface (%s)%s. Scan those regions again.",
+				pct(o.HoleFraction), fmtArea(o.HoleArea), largest)
+		case o.HoleFraction > r.ReviewHoleFraction:
+			add(VerdictReview, CodeHoles, "The model has holes covering %s of its surface (%s)%s. Look at them in the openings picture; rescan if they are on a face the cell sees.",
+				pct(o.HoleFraction), fmtArea(o.HoleArea), largest)
+		}
+		if o.SupportArea > 0 {
+			add(VerdictReady, CodeRestingFace, "The face the part stood on during the sweep (%s, %s of the closed surface) was not scanned, as no single sweep can. The cell sees it only when the part rests on another face; scan the part turned over if it does.",
+				fmtArea(o.SupportArea), pct(o.SupportArea/(o.SurfaceArea+o.HoleArea+o.SupportArea)))
+		}
+	}
+	if c := res.Coverage; c != nil && c.TotalArea > 0 {
+		rest, resting := restingRegions(res)
+		seen := c.SeenArea / math.Max(c.TotalArea-rest, 1e-300)
+		where := ""
+		for i, reg := range c.Unseen {
+			if !resting[i] {
+				where = fmt.Sprintf("; the largest unseen region, %s, is at %s facing %s", fmtArea(reg.Area), vec3mm(reg.Centroid), facing(reg.Normal))
+				break
+			}
+		}
+		msg := "The sweep saw %s of the surface%s (%s unseen)%s."
+		restNote := ""
+		if rest > 0 {
+			restNote = " apart from the face it stood on"
+		}
+		switch {
+		case seen < r.RescanSeen:
+			add(VerdictRescan, CodeLowCoverage, msg+" Scan again with views of every side, including from below the part's middle.",
+				pct(seen), restNote, fmtArea(c.TotalArea-rest-c.SeenArea), where)
+		case seen < r.ReviewSeen:
+			add(VerdictReview, CodeLowCoverage, msg+" Look at the coverage map: rescan if the unseen region is one the cell sees.",
+				pct(seen), restNote, fmtArea(c.TotalArea-rest-c.SeenArea), where)
+		}
+	}
+	// Against the drawing.
+	if c := res.Comparison; c != nil {
+		if math.Abs(c.Scale-1) > r.MaxScaleError {
+			hint := ""
+			if c.UnitHint != "" {
+				hint = " (" + c.UnitHint + ")"
+			}
+			add(VerdictRescan, CodeScale, "The model is %.4g× the size of the reference%s, more than the ±%s a calibrated camera gives: check the camera's depth scale and the file's unit, and scan again.",
+				c.Scale, hint, pct(r.MaxScaleError))
+		}
+		switch {
+		case c.Recall < r.RescanCompleteness:
+			add(VerdictRescan, CodeIncomplete, "Only %s of the reference's surface lies within %s of the model: part of the part is missing (look at the deviation map). Scan again.",
+				pct(c.Recall), fmtLen(c.Threshold))
+		case c.FScore < r.RescanFScore:
+			add(VerdictRescan, CodeShape, "The model agrees with the reference with an F-score of %s at %s (Hausdorff-95 %s): rescan.", pct(c.FScore), fmtLen(c.Threshold), fmtLen(c.Hausdorff95))
+		case c.FScore < r.ReviewFScore:
+			add(VerdictReview, CodeShape, "The model agrees with the reference with an F-score of %s at %s (Hausdorff-95 %s): look at the deviation map.", pct(c.FScore), fmtLen(c.Threshold), fmtLen(c.Hausdorff95))
+		}
+	}
+	// Against reality.
+	if rf := res.Real; rf != nil && len(rf.Frames) > 0 {
+		if rf.Recall < r.RescanRealRecall {
+			add(VerdictRescan, CodeRealFrames, "In the sweep's own frames the model found the part where the fusion put it in %s of %d frames (%s needed): the model does not match the real part. Scan again.",
+				pct(rf.Recall), len(rf.Frames), pct(r.RescanRealRecall))
+		}
+		if rf.ColorChecked > 0 && rf.ColorMismatch > r.ReviewColorMismatch {
+			add(VerdictReview, CodeColorMismatch, "The model's colour differs from the real frames' on %s of the visible surface (%s expected at most): its colours are smeared or shifted, so the scorer's colour cue works against it. Scan again in steady, even light, or lower the colour weight.",
+				pct(rf.ColorMismatch), pct(r.ReviewColorMismatch))
+		}
+	}
+	// Other parts.
+	for _, c := range res.Confusers {
+		if c.Forward.Share >= r.ConfuserShare || c.Reverse.Share >= r.ConfuserShare {
+			var dirs []string
+			if c.Forward.Share >= r.ConfuserShare {
+				dirs = append(dirs, fmt.Sprintf("looking for %s it accepted %s in %d of %d scenes (best score %.3f, threshold %.3f)",
+					res.Name, c.Name, c.Forward.Accepted, c.Forward.Scenes, c.Forward.Best, c.Forward.Threshold))
+			}
+			if c.Reverse.Share >= r.ConfuserShare {
+				dirs = append(dirs, fmt.Sprintf("looking for %s it accepted %s in %d of %d scenes (best score %.3f, threshold %.3f)",
+					c.Name, res.Name, c.Reverse.Accepted, c.Reverse.Scenes, c.Reverse.Best, c.Reverse.Threshold))
+			}
+			add(VerdictReview, CodeConfuser, "The cell could confuse %s with %s: %s. Keep them apart in the cell, or raise the threshold of the part that accepts the other.",
+				res.Name, c.Name, strings.Join(dirs, "; "))
+		}
+	}
+	// Notes.
+	if s := res.Symmetry; s != nil {
+		ss := SummarizeSymmetry(s)
+		if len(s.Geometry) > 0 {
+			add(VerdictReady, CodeSymmetric, "The part's shape is symmetric (%s): poses that differ by it count as the same (ADD-S).", ss.Describe(false))
+			switch {
+			case s.ColorBreaks():
+				add(VerdictReady, CodeColorBreaks, "Its colours tell the symmetric poses apart (with colour: %s): the colour cue lets the cell find the part the right way round (colour-aware recall %s with the point-difference scorer, %s with the baseline).",
+					ss.Describe(true), pct(res.Point.ColorRecall), pct(res.Baseline.ColorRecall))
+			case s.HasColor:
+				add(VerdictReady, CodeColorSymmetric, "Its colours keep the symmetry: the cell cannot tell the symmetric poses apart. If the real part carries a mark or print, the scan lost it.")
+			}
+		}
+	}
+	return out
+}
+
+// restingRegions returns the area of the unseen coverage regions that
+// are the face the part stood on — facing down (within 25°) with their
+// centroid on the support, in the part frame — and which regions they
+// are. Without a known support there are none.
+func restingRegions(res *CheckResult) (float64, []bool) {
+	c := res.Coverage
+	if c == nil {
+		return 0, nil
+	}
+	resting := make([]bool, len(c.Unseen))
+	if res.Openings == nil || math.IsNaN(res.Openings.SupportZ) {
+		return 0, resting
+	}
+	toPart := res.worldToPart
+	tol := math.Max(0.02*res.Openings.Height, 0.001)
+	var a float64
+	for i, reg := range c.Unseen {
+		p := toPart.Apply(reg.Centroid)
+		n := toPart.Rotate(reg.Normal)
+		if math.Abs(p.Z-res.Openings.SupportZ) <= tol && r3.Dot(n, r3.Vec{Z: -1}) > math.Cos(25*math.Pi/180) {
+			resting[i] = true
+			a += reg.Area
+		}
+	}
+	return a, resting
+}
+
+func pct(x float64) string { return fmt.Sprintf("%.1f%%", 100*x) }
+
+func fmtLen(m float64) string {
+	switch a := math.Abs(m); {
+	case a >= 1:
+		return fmt.Sprintf("%.3g m", m)
+	case a >= 1e-3 || a == 0:
+		return fmt.Sprintf("%.3g mm", m*1e3)
+	default:
+		return fmt.Sprintf("%.3g µm", m*1e6)
+	}
+}
+
+func fmtArea(a float64) string { return fmt.Sprintf("%.0f mm²", a*1e6) }
