@@ -79,7 +79,9 @@ type SweepInput struct {
 
 // CheckOptions tunes Check.
 type CheckOptions struct {
-	// Views is the number of synthetic check views.
+	// Views is the number of synthetic check views; 0 runs only the
+	// checks that need none (the model's size and openings, real frames,
+	// coverage, reference), and the verdict is then at best review.
 	// DEFAULT: 60
 	Views int
 	// Scene sets up the views; its Seed is replaced by Seed.
@@ -100,12 +102,22 @@ type CheckOptions struct {
 	// it are too small to be voted on (MinSegmentPixels).
 	// DEFAULT: 0.0025
 	PlaneMargin float64
-	// Vote tunes the PPF voting; MaxHypotheses, RefineScene, RefineModel
-	// and Workers are set by Check (SegmentHypotheses per piece, the
-	// piece's cloud at a quarter of the table spacing, the table's
-	// cloud, one worker per view).
+	// Vote tunes the PPF voting; MaxHypotheses, Refine and Workers are
+	// set by Check (SegmentHypotheses per piece, no refinement — the
+	// check refines the hypotheses itself, see refineHypotheses — and
+	// one worker per view), and ReferenceStep is lowered for small
+	// pieces.
 	// DEFAULT: features.DefaultVoteOptions()
 	Vote features.VoteOptions
+	// RefineSpacing is the spacing, as a share of the table cloud's,
+	// of the model sample the hypotheses are refined with (ICP); 0
+	// refines with the table cloud itself.
+	// DEFAULT: 0
+	RefineSpacing float64
+	// RefineIterations bounds each of the two ICP stages of the
+	// refinement.
+	// DEFAULT: 15
+	RefineIterations int
 	// MinSegmentPixels: connected pieces of the scene with fewer pixels
 	// are not voted on (sensor specks).
 	// DEFAULT: 40
@@ -113,11 +125,14 @@ type CheckOptions struct {
 	// MaxSegmentDiameters: pieces more than this many part diameters
 	// across (the diagonal of their points' bounding box) cannot be the
 	// part alone and are not voted on, as a cell filters blobs by size
-	// (common practice).
-	// DEFAULT: 1.5
+	// (common practice). Twice, not once: a piece's box also holds the
+	// noisy points along its silhouette, and a part seen from an angle
+	// spans its full diameter.
+	// DEFAULT: 2
 	MaxSegmentDiameters float64
-	// SegmentHypotheses is the number of hypotheses kept per piece.
-	// DEFAULT: 3
+	// SegmentHypotheses is the number of hypotheses kept per piece
+	// (the clusters with the most votes).
+	// DEFAULT: 10
 	SegmentHypotheses int
 	// ScorePoints is the number of model points the scorers compare
 	// (sampled evenly on the model).
@@ -143,6 +158,12 @@ type CheckOptions struct {
 	// Grid lists the weights tried.
 	// DEFAULT: CheckWeightGrid()
 	Grid WeightGrid
+	// CalibrationRight and CalibrationWrong bound the voted hypotheses
+	// per view the weights are calibrated on: the right and the wrong
+	// ones with the most votes (the strongest contenders), besides the
+	// perturbed ones (ExtraWrong).
+	// DEFAULT: 4 and 8
+	CalibrationRight, CalibrationWrong int
 	// Calibration tunes the acceptance thresholds.
 	// DEFAULT: DefaultCalibrationOptions()
 	Calibration CalibrationOptions
@@ -186,15 +207,19 @@ func DefaultCheckOptions() CheckOptions {
 		Seed:                1,
 		PlaneMargin:         0.0025,
 		Vote:                features.DefaultVoteOptions(),
+		RefineSpacing:       0,
+		RefineIterations:    15,
 		MinSegmentPixels:    40,
-		MaxSegmentDiameters: 1.5,
-		SegmentHypotheses:   3,
+		MaxSegmentDiameters: 2,
+		SegmentHypotheses:   10,
 		ScorePoints:         1000,
 		ErrorPoints:         2000,
 		ExtraWrong:          3,
 		Baseline:            DefaultBaselineOptions(),
 		Point:               DefaultPointScoreOptions(),
 		Grid:                CheckWeightGrid(),
+		CalibrationRight:    4,
+		CalibrationWrong:    8,
 		Calibration:         DefaultCalibrationOptions(),
 		Symmetry:            DefaultSymmetryOptions(),
 		Stable:              DefaultStableOptions(),
@@ -221,8 +246,8 @@ func CheckWeightGrid() WeightGrid {
 
 // Validate reports options that cannot run a check.
 func (o CheckOptions) Validate() error {
-	if o.Views < 2 || o.Views > 10000 {
-		return fmt.Errorf("validate: check views %d, want 2..10000", o.Views)
+	if o.Views < 0 || o.Views == 1 || o.Views > 10000 {
+		return fmt.Errorf("validate: check views %d, want 0 or 2..10000", o.Views)
 	}
 	if !(o.PlaneMargin >= 0) {
 		return fmt.Errorf("validate: check PlaneMargin %v, want ≥ 0", o.PlaneMargin)
@@ -233,8 +258,14 @@ func (o CheckOptions) Validate() error {
 	if o.ExtraWrong < 0 || o.ExtraWrong > 100 || o.ConfuserViews < 0 || o.ConfuserViews > 100 || o.MaxRealFrames < 0 {
 		return fmt.Errorf("validate: check ExtraWrong %d, ConfuserViews %d (0..100), MaxRealFrames %d (≥ 0)", o.ExtraWrong, o.ConfuserViews, o.MaxRealFrames)
 	}
+	if !(o.RefineSpacing >= 0 && o.RefineSpacing <= 1) || o.RefineIterations < 1 || o.RefineIterations > 1000 {
+		return fmt.Errorf("validate: check RefineSpacing %v (0..1), RefineIterations %d (1..1000)", o.RefineSpacing, o.RefineIterations)
+	}
 	if o.MinSegmentPixels < 1 || !(o.MaxSegmentDiameters > 0) || o.SegmentHypotheses < 1 || o.SegmentHypotheses > 100 {
 		return fmt.Errorf("validate: check MinSegmentPixels %d (≥ 1), MaxSegmentDiameters %v (> 0), SegmentHypotheses %d (1..100)", o.MinSegmentPixels, o.MaxSegmentDiameters, o.SegmentHypotheses)
+	}
+	if o.CalibrationRight < 1 || o.CalibrationWrong < 1 {
+		return fmt.Errorf("validate: check CalibrationRight %d and CalibrationWrong %d, want ≥ 1", o.CalibrationRight, o.CalibrationWrong)
 	}
 	if o.Workers < 0 {
 		return fmt.Errorf("validate: check Workers %d", o.Workers)
@@ -296,8 +327,11 @@ type ViewResult struct {
 	BestVotes    int `json:"best_votes"`
 	// MSSD and ColorCorrect of the chosen hypotheses: by the baseline
 	// [0], the point scorer [1] and the votes [2]. ColorCorrect: right
-	// also under the colour's symmetries only (the label the right way
-	// round); MSSD is +Inf without a choice.
+	// also the right way round by the colours — the smallest ADD from
+	// the truth turned by a symmetry of shape and colour together is
+	// below 10 % of the diameter (a labelled box turned over is right
+	// by ADD-S but not here); MSSD, over the same symmetries, is +Inf
+	// without a choice.
 	MSSD         [3]float64 `json:"-"`
 	ColorCorrect [3]bool    `json:"color_correct"`
 
@@ -318,9 +352,10 @@ type ScorerFigures struct {
 	// Name of the scorer.
 	Name string `json:"name"`
 	// Recall is the share of views whose best-ranked hypothesis is
-	// correct (ADD, or ADD-S for a symmetric part, < 10 % of the
-	// diameter); ColorRecall the share also right under the colour's
-	// symmetries; MSSDRecall the BOP average recall of MSSD over the
+	// correct (ADD, or ADD-S for a part whose shape is symmetric, < 10 %
+	// of the diameter: Hinterstoisser et al. 2012); ColorRecall the
+	// share also right the way round its colours tell (see
+	// ViewResult.ColorCorrect); MSSDRecall the BOP average recall of MSSD over the
 	// thresholds 5–50 % of the diameter.
 	Recall      float64 `json:"recall"`
 	ColorRecall float64 `json:"color_recall"`
@@ -337,12 +372,13 @@ type ScorerFigures struct {
 // report.
 type CheckResult struct {
 	Name string
-	// Diameter and Area of the model; Symmetric reports a geometric
-	// symmetry (ADD-S decides correctness).
-	Diameter, Area float64
-	Symmetric      bool
-	Stable         *StableResult
-	Symmetry       *SymmetryReport
+	// Diameter and Area of the model; Symmetric reports a symmetry of
+	// its shape (ADD-S decides correctness).
+	Diameter, Area    float64
+	Symmetric         bool
+	GeometrySymmetric bool
+	Stable            *StableResult
+	Symmetry          *SymmetryReport
 	// Views are the synthetic check views.
 	Views []ViewResult
 	// Baseline, Point and Votes are the three rankings of the vote's
@@ -377,8 +413,8 @@ type CheckResult struct {
 	Notes    []string
 
 	model       *mesh.Mesh
-	worldToPart mesh.Pose // the coverage mesh's frame to the part frame
-	geomSyms    []mesh.Pose
+	worldToPart mesh.Pose   // the coverage mesh's frame to the part frame
+	syms        []mesh.Pose // symmetry transforms by shape and colour
 }
 
 // Check proves whether a part's model lets a PPF-based cell find it.
@@ -494,45 +530,56 @@ func Check(ctx context.Context, in CheckInput, opt CheckOptions) (*CheckResult, 
 		return nil, fmt.Errorf("validate: check colour symmetry group: %w", err)
 	}
 	res.Symmetric = len(geomSyms) > 1
-	res.geomSyms = geomSyms
+	res.syms = colorSyms
 	progress("model", 1, 1)
 	lap("model: resting poses, symmetry, openings")
 
 	// Samples of the model for scoring, errors and refinement.
-	pc, err := newPartCheck(m, in.Tables, cloud, geomSyms, colorSyms, res.Symmetric, opt)
+	pc, err := newPartCheck(m, in.Tables, colorSyms, res.Symmetric, opt)
 	if err != nil {
 		return nil, err
+	}
+	if len(colorSyms) < len(geomSyms) && len(geomSyms) <= maxExpand {
+		for _, g := range geomSyms {
+			if !isIdentity(g, 1e-6) {
+				pc.expand = append(pc.expand, g)
+			}
+		}
 	}
 	lap("model samples")
 
 	// 2. The views.
-	clutter := append([]*mesh.Mesh(nil), in.Clutter...)
-	if in.Clutter == nil {
-		clutter = defaultClutter()
-	}
-	for _, c := range in.Confusers {
-		if c.Mesh != nil {
-			clutter = append(clutter, c.Mesh)
+	if opt.Views > 0 {
+		clutter := append([]*mesh.Mesh(nil), in.Clutter...)
+		if in.Clutter == nil {
+			clutter = defaultClutter()
 		}
-	}
-	sopt := opt.Scene
-	sopt.Seed = opt.Seed
-	res.Views = make([]ViewResult, opt.Views)
-	if err := pc.runViews(ctx, res.Stable.Poses, clutter, sopt, res.Views, workers, progress); err != nil {
-		return nil, err
-	}
-	lap("views: render, vote, score")
+		for _, c := range in.Confusers {
+			if c.Mesh != nil {
+				clutter = append(clutter, c.Mesh)
+			}
+		}
+		sopt := opt.Scene
+		sopt.Seed = opt.Seed
+		res.Views = make([]ViewResult, opt.Views)
+		if err := pc.runViews(ctx, res.Stable.Poses, clutter, sopt, res.Views, workers, progress); err != nil {
+			return nil, err
+		}
+		lap("views: render, vote, score")
 
-	// 3. Weights, recall, thresholds.
-	if err := pc.calibrate(res, workers); err != nil {
-		return nil, err
+		// 3. Weights, recall, thresholds.
+		if err := pc.calibrate(res, workers); err != nil {
+			return nil, err
+		}
+		lap("calibration")
+		pc.figures(res)
+		for i := range res.Views {
+			res.Views[i].obs = nil
+		}
+		lap("figures")
+	} else {
+		res.Notes = append(res.Notes, "no synthetic views were rendered (Views = 0)")
 	}
-	lap("calibration")
-	pc.figures(res)
-	for i := range res.Views {
-		res.Views[i].obs = nil
-	}
-	lap("figures")
 
 	// 4. Real frames and confusers need the calibrated scorer.
 	if len(in.Frames) > 0 {
@@ -624,8 +671,8 @@ type partCheck struct {
 	score      *ScoreModel
 	errs       *ErrorModel
 	refine     *mesh.Cloud
-	colorSyms  []mesh.Pose
-	symmetric  bool
+	symmetric  bool        // by shape: ADD-S decides
+	expand     []mesh.Pose // shape symmetries the colour breaks (identity left out)
 	centre     r3.Vec
 	opt        CheckOptions
 	calibrated PointScoreOptions
@@ -645,8 +692,11 @@ func evenSample(m *mesh.Mesh, n int, seed uint64) (*mesh.Cloud, error) {
 	return c, err
 }
 
-func newPartCheck(m *mesh.Mesh, tables *features.Model, cloud *mesh.Cloud, geomSyms, colorSyms []mesh.Pose, symmetric bool, opt CheckOptions) (*partCheck, error) {
-	pc := &partCheck{model: m, tables: tables, colorSyms: colorSyms, symmetric: symmetric, opt: opt}
+// newPartCheck prepares one part: syms are its symmetry transforms by
+// shape and colour together (for MSSD and the colour-aware recall),
+// symmetric whether its shape is symmetric.
+func newPartCheck(m *mesh.Mesh, tables *features.Model, syms []mesh.Pose, symmetric bool, opt CheckOptions) (*partCheck, error) {
+	pc := &partCheck{model: m, tables: tables, symmetric: symmetric, opt: opt}
 	sc, err := evenSample(m, opt.ScorePoints, opt.Seed)
 	if err != nil {
 		return nil, fmt.Errorf("validate: check score sample: %w", err)
@@ -658,26 +708,28 @@ func newPartCheck(m *mesh.Mesh, tables *features.Model, cloud *mesh.Cloud, geomS
 	if err != nil {
 		return nil, fmt.Errorf("validate: check error sample: %w", err)
 	}
-	if pc.errs, err = NewErrorModel(ec.Points, geomSyms); err != nil {
+	if pc.errs, err = NewErrorModel(ec.Points, syms); err != nil {
 		return nil, err
 	}
-	so := mesh.DefaultSampleOptions()
-	so.Spacing = tables.Spacing / 4
-	so.Seed = opt.Seed + 2
-	if m.Normals == nil {
-		so.Normals = mesh.NormalsFace
-	}
-	if a := m.Area(); a/(so.Spacing*so.Spacing) > 40000 {
-		// At most about 20,000 refinement points.
-		so.Spacing = math.Sqrt(0.55 * a / 20000)
-	}
-	if pc.refine, _, err = mesh.Sample(m, so); err != nil {
-		return nil, fmt.Errorf("validate: check refinement sample: %w", err)
+	pc.refine = tables.Cloud()
+	if opt.RefineSpacing > 0 {
+		so := mesh.DefaultSampleOptions()
+		so.Spacing = opt.RefineSpacing * tables.Spacing
+		so.Seed = opt.Seed + 2
+		if m.Normals == nil {
+			so.Normals = mesh.NormalsFace
+		}
+		if a := m.Area(); a/(so.Spacing*so.Spacing) > 40000 {
+			// At most about 20,000 refinement points.
+			so.Spacing = math.Sqrt(0.55 * a / 20000)
+		}
+		if pc.refine, _, err = mesh.Sample(m, so); err != nil {
+			return nil, fmt.Errorf("validate: check refinement sample: %w", err)
+		}
 	}
 	pc.centre = centroidOf(sc.Points)
 	pc.calibrated = opt.Point
 	pc.heldOut = [2]PointScoreOptions{opt.Point, opt.Point}
-	_ = cloud
 	return pc, nil
 }
 
@@ -799,11 +851,13 @@ func maskedClouds(depth []float32, intr mesh.Intrinsics, mask []bool, spacing fl
 }
 
 // segmentMasks splits the marked pixels into connected pieces: pixels
-// joined through their four neighbours where the depths differ by less
-// than max(5 mm, 3 % of the depth) — a depth step larger than that is
-// an occluding edge between objects (the neighbours of a surface
-// slanted at 80° differ by about f⁻¹·z·tan 80° ≈ 1.1 % of z at
-// f = 525 px; pinhole geometry). Pieces of fewer than minPixels are
+// joined to the pixels within joinReach of them (so that the one- or
+// two-pixel gaps a sensor leaves along depth edges do not cut a part
+// in pieces) where the depths differ by less than max(4 mm, 1.5 % of the depth) — a depth step larger than that
+// is an occluding edge between objects: the neighbours of a surface
+// slanted at 80° differ by about z·tan 80°/f ≈ 1.1 % of z at f = 525 px
+// (pinhole geometry), and the axial noise of two neighbours differs by
+// about √2·σ_z ≈ 2.5 mm at 0.8 m (Nguyen et al. 2012). Pieces of fewer than minPixels are
 // dropped as specks; the rest are returned largest first (ties by their
 // first pixel), each as a mask.
 func segmentMasks(depth []float32, intr mesh.Intrinsics, mask []bool, minPixels int) [][]bool {
@@ -820,7 +874,7 @@ func segmentMasks(depth []float32, intr mesh.Intrinsics, mask []bool, minPixels 
 	stack := make([]int, 0, 1024)
 	join := func(a, b int) bool {
 		za, zb := float64(depth[a]), float64(depth[b])
-		return math.Abs(za-zb) < math.Max(0.005, 0.03*math.Min(za, zb))
+		return math.Abs(za-zb) < math.Max(0.004, 0.015*math.Min(za, zb))
 	}
 	for k := range depth {
 		if !mask[k] || label[k] >= 0 {
@@ -835,13 +889,17 @@ func segmentMasks(depth []float32, intr mesh.Intrinsics, mask []bool, minPixels 
 			stack = stack[:len(stack)-1]
 			n++
 			x, y := p%w, p/w
-			for dir, q := range [4]int{p - 1, p + 1, p - w, p + w} {
-				if (dir == 0 && x == 0) || (dir == 1 && x == w-1) || (dir == 2 && y == 0) || (dir == 3 && y == h-1) {
-					continue
-				}
-				if mask[q] && label[q] < 0 && join(p, q) {
-					label[q] = id
-					stack = append(stack, q)
+			for dy := -joinReach; dy <= joinReach; dy++ {
+				for dx := -joinReach; dx <= joinReach; dx++ {
+					xx, yy := x+dx, y+dy
+					if (dx == 0 && dy == 0) || xx < 0 || yy < 0 || xx >= w || yy >= h {
+						continue
+					}
+					q := yy*w + xx
+					if mask[q] && label[q] < 0 && join(p, q) {
+						label[q] = id
+						stack = append(stack, q)
+					}
 				}
 			}
 		}
@@ -888,24 +946,106 @@ func (pc *partCheck) voteScene(depth []float32, intr mesh.Intrinsics, up r3.Vec,
 			continue
 		}
 		vo := pc.opt.Vote
+		// A small piece gets more of its points as references, at least
+		// minReferences, so a part seen small or far still collects the
+		// votes of enough reference points.
+		vo.ReferenceStep = max(1, min(vo.ReferenceStep, len(scene.Points)/minReferences))
 		vo.MaxHypotheses = pc.opt.SegmentHypotheses
-		vo.RefineScene = dense
-		vo.RefineModel = nil
+		vo.Refine = false
 		vo.Workers = 1
 		hyps, err := features.Vote(pc.tables, scene, vo)
 		if err != nil {
 			return nil, err
 		}
+		pc.refineHypotheses(hyps, dense)
 		all = append(all, hyps...)
 	}
 	sort.SliceStable(all, func(i, j int) bool { return all[i].Votes > all[j].Votes })
+	// A shape symmetry the colours break: the votes (geometry only)
+	// cannot tell the equivalent poses apart, so each hypothesis is
+	// joined by its equivalents h·S, as well refined as h itself, and
+	// the scorers decide.
+	if len(pc.expand) > 0 {
+		n := len(all)
+		for i := 0; i < n; i++ {
+			for _, sym := range pc.expand {
+				h := all[i]
+				h.ModelToScene = h.ModelToScene.Mul(sym)
+				all = append(all, h)
+			}
+		}
+	}
 	return all, nil
+}
+
+// joinReach is how far (pixels, along each axis) segmentMasks looks
+// for neighbours.
+const joinReach = 2
+
+// refineHypotheses refines each voted pose by point-to-plane ICP
+// (mesh.ICPPointToPlane: Chen & Medioni 1992 with the linearisation of
+// Low 2004) of the model points that face the camera under it (their
+// normal within 85° of the line of sight, as the scorers count them:
+// the far side of the part has nothing to pair with) against the
+// piece's dense cloud: first with pairs within a tenth of the diameter
+// and 45° of normal agreement, then with pairs within half a model
+// spacing and 20°, which drops the pairs across creases where a depth
+// image's normals bend (the two stages of the features package's own
+// refinement). A hypothesis whose ICP fails (too few pairs) keeps its
+// voted pose.
+func (pc *partCheck) refineHypotheses(hyps []features.Hypothesis, dense *mesh.Cloud) {
+	if len(hyps) == 0 || len(dense.Points) < 6 {
+		return
+	}
+	tree := mesh.NewKDTree(dense.Points)
+	src := pc.refine
+	sub := &mesh.Cloud{}
+	coarse := mesh.DefaultICPOptions()
+	coarse.MaxDistance = 0.1 * pc.tables.Diameter
+	coarse.HuberDelta = pc.tables.Spacing
+	coarse.MaxIterations = pc.opt.RefineIterations
+	fine := coarse
+	fine.MaxDistance = 0.5 * pc.tables.Spacing
+	fine.MaxNormalAngle = 20 * math.Pi / 180
+	for i := range hyps {
+		pose := hyps[i].ModelToScene
+		sub.Points, sub.Normals = sub.Points[:0], sub.Normals[:0]
+		for k, p := range src.Points {
+			q := pose.Apply(p)
+			if q.Z > 0 && -r3.Dot(pose.Rotate(src.Normals[k]), q)/r3.Norm(q) >= minFacing {
+				sub.Points = append(sub.Points, p)
+				sub.Normals = append(sub.Normals, src.Normals[k])
+			}
+		}
+		if len(sub.Points) < 6 {
+			continue
+		}
+		res, err := mesh.ICPPointToPlane(sub, dense, tree, pose, coarse)
+		if err != nil {
+			continue
+		}
+		if r2, err := mesh.ICPPointToPlane(sub, dense, tree, res.Pose, fine); err == nil {
+			res = r2
+		}
+		hyps[i].ModelToScene = res.Pose
+		hyps[i].Refined = true
+		hyps[i].ICP = res
+	}
 }
 
 // minSegmentPoints: a piece with fewer scene points (at the model's
 // spacing) than this cannot carry a pose: PPF needs pairs from at least
 // two surfaces, a few points each.
 const minSegmentPoints = 10
+
+// maxExpand bounds the shape symmetries a hypothesis is expanded by
+// (voteScene): a finite group up to the octahedral's 24 elements.
+const maxExpand = 24
+
+// minReferences is the fewest reference points a piece is voted with
+// (while it has that many points): Drost et al. (2010) take every fifth
+// scene point, which on a piece of a hundred points leaves twenty.
+const minReferences = 100
 
 // view processes one rendered scene into out.
 func (pc *partCheck) view(sc *Scene, sopt SceneOptions, out *ViewResult) error {
@@ -1044,24 +1184,31 @@ func thumbnail(img *image.NRGBA, w int) *image.NRGBA {
 // calibrate fits the point score's weights (all views, and each half
 // for the other) and scores every hypothesis with them.
 func (pc *partCheck) calibrate(res *CheckResult, workers int) error {
-	sets := [3][]Labelled{} // all, even, odd
+	// The calibration set: per view the perturbed hypotheses, and of
+	// the voted ones (in order of votes) up to CalibrationRight right
+	// and CalibrationWrong wrong ones — the strongest contenders; the
+	// rest add scoring time and say little more.
+	var set []Labelled
+	var groups [3][]int // all, even views, odd views
 	for i := range res.Views {
 		v := &res.Views[i]
+		nr, nw := 0, 0
 		for _, h := range v.Hypotheses {
-			l := Labelled{Obs: v.obs, ModelToCam: h.ModelToCam, Right: h.Correct}
-			sets[0] = append(sets[0], l)
-			sets[1+v.Index%2] = append(sets[1+v.Index%2], l)
+			switch {
+			case h.Extra:
+			case h.Correct && nr < pc.opt.CalibrationRight:
+				nr++
+			case !h.Correct && nw < pc.opt.CalibrationWrong:
+				nw++
+			default:
+				continue
+			}
+			groups[0] = append(groups[0], len(set))
+			groups[1+v.Index%2] = append(groups[1+v.Index%2], len(set))
+			set = append(set, Labelled{Obs: v.obs, ModelToCam: h.ModelToCam, Right: h.Correct})
 		}
 	}
-	var fitted [3]PointScoreOptions
-	var errs [3]error
-	forEach(context.Background(), 3, workers, func(k int) error {
-		fitted[k], _, errs[k] = CalibrateWeights(pc.score, sets[k], pc.opt.Point, pc.opt.Grid)
-		if errs[k] != nil {
-			fitted[k] = pc.opt.Point
-		}
-		return nil
-	})
+	fitted, errs := calibrateWeightsGroups(pc.score, set, groups[:], pc.opt.Point, pc.opt.Grid, workers)
 	pc.calibrated = fitted[0]
 	pc.heldOut = [2]PointScoreOptions{fitted[1], fitted[2]}
 	res.PointOptions = fitted[0]
@@ -1084,6 +1231,86 @@ func (pc *partCheck) calibrate(res *CheckResult, workers int) error {
 		return nil
 	})
 	return nil
+}
+
+// calibrateWeightsGroups is CalibrateWeights run on each group of the
+// labelled set (indices into set), scoring every item once per weight
+// combination and sharing the scores between the groups; combinations
+// are scored in parallel. A group lacking right or wrong items gets the
+// base options and an error, as CalibrateWeights gives.
+func calibrateWeightsGroups(m *ScoreModel, set []Labelled, groups [][]int, base PointScoreOptions, grid WeightGrid, workers int) ([]PointScoreOptions, []error) {
+	fitted := make([]PointScoreOptions, len(groups))
+	errs := make([]error, len(groups))
+	for g, idx := range groups {
+		fitted[g] = base
+		nr := 0
+		for _, i := range idx {
+			if set[i].Right {
+				nr++
+			}
+		}
+		if nr == 0 || nr == len(idx) {
+			errs[g] = fmt.Errorf("validate: weight calibration needs right and wrong hypotheses (%d right of %d)", nr, len(idx))
+		}
+	}
+	if len(grid.NormalWeight) == 0 || len(grid.ColorWeight) == 0 || len(grid.OcclusionPenalty) == 0 || len(grid.FreeSpacePenalty) == 0 {
+		for g := range errs {
+			errs[g] = errors.New("validate: weight calibration grid has an empty axis")
+		}
+		return fitted, errs
+	}
+	// The combinations in CalibrateWeights's order.
+	var combos []PointScoreOptions
+	for _, wn := range grid.NormalWeight {
+		for _, wc := range grid.ColorWeight {
+			if wn+wc > 1 {
+				continue
+			}
+			for _, wo := range grid.OcclusionPenalty {
+				for _, wf := range grid.FreeSpacePenalty {
+					o := base
+					o.NormalWeight, o.ColorWeight, o.OcclusionPenalty, o.FreeSpacePenalty = wn, wc, wo, wf
+					if err := o.Validate(); err != nil {
+						for g := range errs {
+							errs[g] = err
+						}
+						return fitted, errs
+					}
+					combos = append(combos, o)
+				}
+			}
+		}
+	}
+	scores := make([][]float64, len(combos))
+	forEach(context.Background(), len(combos), workers, func(c int) error {
+		sc := make([]float64, len(set))
+		for i, l := range set {
+			sc[i] = PointScore(m, l.ModelToCam, l.Obs, combos[c]).Score
+		}
+		scores[c] = sc
+		return nil
+	})
+	for g, idx := range groups {
+		if errs[g] != nil {
+			continue
+		}
+		best := Separation{AUC: math.Inf(-1), Gap: math.Inf(-1)}
+		var right, wrong []float64
+		for c := range combos {
+			right, wrong = right[:0], wrong[:0]
+			for _, i := range idx {
+				if set[i].Right {
+					right = append(right, scores[c][i])
+				} else {
+					wrong = append(wrong, scores[c][i])
+				}
+			}
+			if sep := Separate(right, wrong); sep.better(best) {
+				best, fitted[g] = sep, combos[c]
+			}
+		}
+	}
+	return fitted, errs
 }
 
 // figures picks each ranking's hypothesis per view and gathers the
@@ -1136,14 +1363,12 @@ func (pc *partCheck) figures(res *CheckResult) {
 			}
 			est := v.Hypotheses[b].ModelToCam
 			v.MSSD[k] = pc.errs.MSSD(v.Truth, est)
-			cc := false
-			for _, s := range pc.colorSyms {
-				if pc.errs.ADD(v.Truth.Mul(s), est) < lim {
-					cc = true
+			for _, sy := range pc.errs.Symmetries() {
+				if pc.errs.ADD(v.Truth.Mul(sy), est) < lim {
+					v.ColorCorrect[k] = true
 					break
 				}
 			}
-			v.ColorCorrect[k] = cc
 			mssd[k] = append(mssd[k], v.MSSD[k])
 		}
 		for k := range mssd {

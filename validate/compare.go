@@ -667,7 +667,8 @@ type AlignMode int
 const (
 	// AlignAuto finds a coarse pose without any prior (principal axes
 	// of both surfaces, trying the 24 axis-aligned turns between them,
-	// each scored by the mean truncated distance to the reference) and
+	// and, with CompareOptions.PPF, the poses PPF voting finds; each
+	// scored by the mean truncated distance to the reference) and
 	// refines it by point-to-plane ICP.
 	AlignAuto AlignMode = iota
 	// AlignRefine refines CompareOptions.Initial by ICP.
@@ -739,6 +740,12 @@ type CompareOptions struct {
 	// the meshes and the options.
 	// DEFAULT: 1
 	Seed uint64
+	// PPF adds to AlignAuto's coarse candidates the poses found by
+	// voting with the reference's PPF tables in the scan (see
+	// ppfCandidates): they find a part whose principal axes are
+	// ambiguous (a near-cubic or round part) or shifted (a partial scan).
+	// DEFAULT: true
+	PPF bool
 }
 
 // DefaultCompareOptions returns the documented defaults.
@@ -750,6 +757,7 @@ func DefaultCompareOptions() CompareOptions {
 		ScaleTolerance: 0.01,
 		AlignPoints:    3000,
 		Seed:           1,
+		PPF:            true,
 	}
 }
 
@@ -797,7 +805,8 @@ type Comparison struct {
 	AppliedScale    float64     `json:"applied_scale"`
 	Matrix          [16]float64 `json:"scan_to_reference"`
 	// AlignMode is the mode asked for; AlignMethod says what found the
-	// coarse pose ("principal axes", "initial pose", "none").
+	// coarse pose ("principal axes", "PPF votes", "initial pose",
+	// "none").
 	AlignMode   string `json:"align_mode"`
 	AlignMethod string `json:"align_method"`
 	// AlignRMS is the point-to-plane RMS residual of the accepted pairs
@@ -1166,6 +1175,7 @@ type aligner struct {
 	refPts       []r3.Vec // reference points for the principal axes
 	scanCentroid r3.Vec
 	refCentroid  r3.Vec
+	refMesh      *mesh.Mesh // the reference, for its PPF tables
 	k0           float64 // scale that matches the RMS radii
 	diam         float64 // reference diameter
 	tau          float64
@@ -1178,7 +1188,7 @@ type icpStats struct {
 }
 
 func newAligner(scan, ref *mesh.Mesh, refSurf *Surface, scanArea float64, opt CompareOptions) (*aligner, error) {
-	a := &aligner{opt: opt, ref: refSurf, tau: opt.Threshold, diam: ref.Diameter()}
+	a := &aligner{opt: opt, ref: refSurf, tau: opt.Threshold, diam: ref.Diameter(), refMesh: ref}
 	if !(a.diam > 0) {
 		return nil, fmt.Errorf("validate: the reference has zero diameter: %w", mesh.ErrDegenerate)
 	}
@@ -1263,12 +1273,12 @@ func (a *aligner) run(ctx context.Context, cmp *Comparison) (float64, mesh.Pose,
 		k = 1
 		cmp.AlignMethod = "initial pose"
 	default:
-		p, err := a.coarse(ctx, k)
+		p, method, err := a.coarse(ctx, k)
 		if err != nil {
 			return 0, mesh.Pose{}, err
 		}
 		pose = p
-		cmp.AlignMethod = "principal axes"
+		cmp.AlignMethod = method
 	}
 	var st icpStats
 	var err error
@@ -1374,18 +1384,19 @@ func principalAxes(pts []r3.Vec, c r3.Vec) (mesh.Mat3, error) {
 // principal frames of the scaled scan and the reference, each scored by
 // the mean truncated distance of a subset of scan points, the best four
 // refined by a short ICP and scored again.
-func (a *aligner) coarse(ctx context.Context, k float64) (mesh.Pose, error) {
+func (a *aligner) coarse(ctx context.Context, k float64) (mesh.Pose, string, error) {
 	es, err := principalAxes(a.pts, a.scanCentroid)
 	if err != nil {
-		return mesh.Pose{}, err
+		return mesh.Pose{}, "", err
 	}
 	er, err := principalAxes(a.refPts, a.refCentroid)
 	if err != nil {
-		return mesh.Pose{}, err
+		return mesh.Pose{}, "", err
 	}
 	type cand struct {
-		pose  mesh.Pose
-		score float64
+		pose   mesh.Pose
+		score  float64
+		method string
 	}
 	capD := 0.1 * a.diam
 	var cands []cand
@@ -1393,23 +1404,32 @@ func (a *aligner) coarse(ctx context.Context, k float64) (mesh.Pose, error) {
 		r := er.Mul(g).Mul(es.T())
 		t := r3.Sub(a.refCentroid, r.MulVec(r3.Scale(k, a.scanCentroid)))
 		p := mesh.Pose{R: r, T: t}
-		cands = append(cands, cand{p, a.truncatedMean(k, p, capD, 400)})
+		cands = append(cands, cand{p, a.truncatedMean(k, p, capD, 400), "principal axes"})
+	}
+	if a.opt.PPF {
+		ppf, err := a.ppfCandidates(ctx, k)
+		if err != nil {
+			return mesh.Pose{}, "", err
+		}
+		for _, p := range ppf {
+			cands = append(cands, cand{p, a.truncatedMean(k, p, capD, 400), "PPF votes"})
+		}
 	}
 	sort.SliceStable(cands, func(i, j int) bool { return cands[i].score < cands[j].score })
 	best := cand{score: math.Inf(1)}
 	for _, c := range cands[:4] {
 		if err := ctx.Err(); err != nil {
-			return mesh.Pose{}, err
+			return mesh.Pose{}, "", err
 		}
 		p, _, err := a.icp(k, c.pose, capD, 15)
 		if err != nil {
 			p = c.pose
 		}
 		if s := a.truncatedMean(k, p, capD/2, 800); s < best.score {
-			best = cand{p, s}
+			best = cand{p, s, c.method}
 		}
 	}
-	return best.pose, nil
+	return best.pose, best.method, nil
 }
 
 // truncatedMean is the mean over (up to n, evenly strided) scaled scan

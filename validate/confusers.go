@@ -276,7 +276,7 @@ func newConfuserModel(o NamedModel, opt CheckOptions) (*confuserModel, error) {
 	if err != nil {
 		return nil, err
 	}
-	pc, err := newPartCheck(o.Mesh, tables, nil, nil, nil, false, opt)
+	pc, err := newPartCheck(o.Mesh, tables, nil, false, opt)
 	if err != nil {
 		return nil, err
 	}

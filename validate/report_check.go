@@ -116,7 +116,7 @@ func (res *CheckResult) viewConfusers() []Confuser {
 		// the truth, in the part frame.
 		bestAng := math.Inf(1)
 		var rel mesh.Pose
-		syms := res.geomSyms
+		syms := res.syms
 		if len(syms) == 0 {
 			syms = []mesh.Pose{mesh.Identity()}
 		}

@@ -94,8 +94,10 @@ type VerdictRules struct {
 	// depth-matched points whose colour differs from the real frames'
 	// (ColorDistance > 0.2, the symmetry detector's threshold), the
 	// model's colours are smeared or shifted: the colour cue of the
-	// scorer will mislead. Review. On the demo parts' renders a true
-	// colouring mismatches on 3–12 % of points (shading and noise).
+	// scorer will mislead. Review. In frames rendered with sensor noise
+	// and varied light, the demo parts' true colours mismatch on 1–17 %
+	// of points (shading, dark bores; TestRealFramesTrueModels), the
+	// labelbox blurred over 25 mm on about half (TestCheckSmearedColour).
 	// DEFAULT: 0.25
 	ReviewColorMismatch float64
 	// ConfuserShare: another part is named as a confuser when, in at
@@ -178,6 +180,7 @@ const (
 	CodeColorBreaks      = "color-breaks-symmetry"
 	CodeColorSymmetric   = "color-keeps-symmetry"
 	CodeNoCalibration    = "no-calibration"
+	CodeNoViews          = "no-views"
 )
 
 // Judge returns the findings of a check by the rules, worst first in
@@ -201,7 +204,9 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 		return out
 	}
 	// Recall and separation of the cell's scorer.
-	if len(res.Views) > 0 {
+	if len(res.Views) == 0 {
+		add(VerdictReview, CodeNoViews, "No synthetic views were rendered, so nothing shows that the cell finds the part: run the check with views.")
+	} else {
 		p := res.Point
 		switch {
 		case p.Recall < r.RescanRecall:
@@ -329,7 +334,7 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 			add(VerdictReady, CodeSymmetric, "The part's shape is symmetric (%s): poses that differ by it count as the same (ADD-S).", ss.Describe(false))
 			switch {
 			case s.ColorBreaks():
-				add(VerdictReady, CodeColorBreaks, "Its colours tell the symmetric poses apart (with colour: %s): the colour cue lets the cell find the part the right way round (colour-aware recall %s with the point-difference scorer, %s with the baseline).",
+				add(VerdictReady, CodeColorBreaks, "Its colours tell the symmetric poses apart (with colour: %s): the point-difference scorer chose the pose the right way round in %s of views, the baseline, blind to colour, in %s.",
 					ss.Describe(true), pct(res.Point.ColorRecall), pct(res.Baseline.ColorRecall))
 			case s.HasColor:
 				add(VerdictReady, CodeColorSymmetric, "Its colours keep the symmetry: the cell cannot tell the symmetric poses apart. If the real part carries a mark or print, the scan lost it.")
