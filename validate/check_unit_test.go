@@ -61,7 +61,7 @@ func TestCanonicalFrame(t *testing.T) {
 func TestCanonicalFrameThirdMoment(t *testing.T) {
 	wedge := &mesh.Mesh{
 		Vertices: []r3.Vec{{X: 0, Y: 0}, {X: 0.08, Y: 0}, {X: 0, Y: 0.03}, {X: 0, Y: 0, Z: 0.02}, {X: 0.08, Y: 0, Z: 0.02}, {X: 0, Y: 0.03, Z: 0.02}},
-		Faces: []mesh.Face{{0, 2, 1}, {3, 4, 5}, {0, 1, 4}, {0, 4, 3}, {1, 2, 5}, {1, 5, 4}, {2, 0, 3}, {2, 3, 5}},
+		Faces:    []mesh.Face{{0, 2, 1}, {3, 4, 5}, {0, 1, 4}, {0, 4, 3}, {1, 2, 5}, {1, 5, 4}, {2, 0, 3}, {2, 3, 5}},
 	}
 	up := r3.Vec{Z: 1}
 	a, err := CanonicalFrame(wedge, up)

@@ -1176,8 +1176,8 @@ type aligner struct {
 	scanCentroid r3.Vec
 	refCentroid  r3.Vec
 	refMesh      *mesh.Mesh // the reference, for its PPF tables
-	k0           float64 // scale that matches the RMS radii
-	diam         float64 // reference diameter
+	k0           float64    // scale that matches the RMS radii
+	diam         float64    // reference diameter
 	tau          float64
 }
 
