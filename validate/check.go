@@ -360,6 +360,11 @@ type ScorerFigures struct {
 	Recall      float64 `json:"recall"`
 	ColorRecall float64 `json:"color_recall"`
 	MSSDRecall  float64 `json:"mssd_average_recall"`
+	// AcceptedRecall is the share of views whose best-ranked hypothesis
+	// is correct and scores at or above the calibrated threshold: the
+	// recall of a cell that accepts only poses scoring that high (0
+	// without a calibration).
+	AcceptedRecall float64 `json:"accepted_recall"`
 	// Calibration of the acceptance threshold on the scores of right
 	// and wrong hypotheses (nil for the vote ranking, or when a set was
 	// empty); Right and Wrong are those scores.
@@ -1396,6 +1401,18 @@ func (pc *partCheck) figures(res *CheckResult) {
 			f.Right, f.Wrong = right[k], wrong[k]
 			if cal, err := Calibrate(right[k], wrong[k], pc.opt.Calibration); err == nil {
 				f.Calibration = cal
+				acc := 0
+				for i := range res.Views {
+					v := &res.Views[i]
+					b := [2]int{v.BestBaseline, v.BestPoint}[k]
+					if b < 0 || !v.Hypotheses[b].Correct {
+						continue
+					}
+					if sc := [2]float64{v.Hypotheses[b].Baseline, v.Hypotheses[b].Point}[k]; sc >= cal.Threshold {
+						acc++
+					}
+				}
+				f.AcceptedRecall = float64(acc) / n
 			}
 		}
 		return f

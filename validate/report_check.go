@@ -42,6 +42,8 @@ type Ranking struct {
 	Recall      float64 `json:"recall"`
 	ColorRecall float64 `json:"color_recall"`
 	MSSDRecall  float64 `json:"mssd_average_recall"`
+	// AcceptedRecall: right and at or above the scorer's threshold.
+	AcceptedRecall float64 `json:"accepted_recall"`
 }
 
 // StableSummary is one resting pose in a report.
@@ -68,7 +70,7 @@ func (res *CheckResult) Report(tool Tool) *Report {
 		Openings: res.Openings, RealFrames: res.Real, PartConfusers: res.Confusers}
 	if len(res.Views) > 0 {
 		for _, f := range []ScorerFigures{res.Baseline, res.Point, res.Votes} {
-			s.Rankings = append(s.Rankings, Ranking{Name: f.Name, Recall: f.Recall, ColorRecall: f.ColorRecall, MSSDRecall: f.MSSDRecall})
+			s.Rankings = append(s.Rankings, Ranking{Name: f.Name, Recall: f.Recall, ColorRecall: f.ColorRecall, MSSDRecall: f.MSSDRecall, AcceptedRecall: f.AcceptedRecall})
 		}
 		if res.Baseline.Recall > 0 {
 			s.RecallRatio = res.Point.Recall / res.Baseline.Recall

@@ -30,16 +30,22 @@ type VerdictRules struct {
 	// clutter and occlusion) is not met.
 	// DEFAULT: 0.9
 	ReviewRecall float64
-	// MinMargin: a point-scorer margin (5th percentile of right scores
-	// less the 95th of wrong ones) below this means the bulk of the two
-	// distributions overlap: any acceptance threshold either rejects
-	// right poses or accepts wrong ones. Review.
-	// DEFAULT: 0
-	MinMargin float64
+	// MinAcceptedRecall: the point-difference scorer's threshold is
+	// calibrated to accept at most 1 % of wrong hypotheses
+	// (CalibrationOptions.MaxFalseAccept: a wrong pose accepted is a bad
+	// grasp); below this share of views in which the chosen pose is
+	// right and also clears that threshold, right and wrong scores lie
+	// too close for the threshold to work: review. The margin (5th
+	// percentile of right scores less the 95th of wrong ones) is
+	// reported beside it; on cluttered, occluded views it is often
+	// negative even for good models (right poses of half-hidden parts
+	// score low), so it does not decide on its own.
+	// DEFAULT: 0.7
+	MinAcceptedRecall float64
 	// MinAUC: a point-scorer ROC area below this means the score ranks
 	// a wrong hypothesis above a right one too often (more than 1 pair
-	// in 20). Review.
-	// DEFAULT: 0.95
+	// in 10). Review.
+	// DEFAULT: 0.9
 	MinAUC float64
 	// MinDiameter and MaxDiameter bound a plausible part (metres): a
 	// model outside is in the wrong unit (a millimetre file read as
@@ -120,8 +126,8 @@ func DefaultVerdictRules() VerdictRules {
 	return VerdictRules{
 		RescanRecall:        0.8,
 		ReviewRecall:        0.9,
-		MinMargin:           0,
-		MinAUC:              0.95,
+		MinAcceptedRecall:   0.7,
+		MinAUC:              0.9,
 		MinDiameter:         0.005,
 		MaxDiameter:         2,
 		ReviewHoleFraction:  0.005,
@@ -143,7 +149,7 @@ func DefaultVerdictRules() VerdictRules {
 
 // Validate reports rules out of range.
 func (r VerdictRules) Validate() error {
-	unit := []float64{r.RescanRecall, r.ReviewRecall, r.MinAUC, r.ReviewHoleFraction, r.RescanHoleFraction,
+	unit := []float64{r.RescanRecall, r.ReviewRecall, r.MinAcceptedRecall, r.MinAUC, r.ReviewHoleFraction, r.RescanHoleFraction,
 		r.SupportGapFraction, r.ReviewSeen, r.RescanSeen, r.ReviewFScore, r.RescanFScore, r.RescanCompleteness,
 		r.RescanRealRecall, r.ReviewColorMismatch, r.ConfuserShare, r.ConfuserRatio}
 	for _, v := range unit {
@@ -154,8 +160,8 @@ func (r VerdictRules) Validate() error {
 	if !(r.MinDiameter > 0 && r.MinDiameter < r.MaxDiameter) || math.IsInf(r.MaxDiameter, 0) {
 		return fmt.Errorf("validate: verdict diameters %v..%v", r.MinDiameter, r.MaxDiameter)
 	}
-	if !(r.MinSupportGap >= 0) || !(r.MaxScaleError >= 0) || math.IsNaN(r.MinMargin) {
-		return fmt.Errorf("validate: verdict MinSupportGap %v, MaxScaleError %v, MinMargin %v", r.MinSupportGap, r.MaxScaleError, r.MinMargin)
+	if !(r.MinSupportGap >= 0) || !(r.MaxScaleError >= 0) {
+		return fmt.Errorf("validate: verdict MinSupportGap %v, MaxScaleError %v", r.MinSupportGap, r.MaxScaleError)
 	}
 	return nil
 }
@@ -219,12 +225,12 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 		if c := p.Calibration; c == nil {
 			add(VerdictReview, CodeNoCalibration, "No acceptance threshold could be calibrated: the views gave no right or no wrong hypotheses (%d right, %d wrong).", len(p.Right), len(p.Wrong))
 		} else {
-			if c.Gap < r.MinMargin {
-				add(VerdictReview, CodeThinMargin, "Right and wrong poses overlap in score: the 5th percentile of right scores (%.3f) lies below the 95th of wrong ones (%.3f). With the threshold %.3f the cell accepts %s of right poses and %s of wrong ones; decide which misses it can afford.",
-					c.RightP5, c.WrongP95, c.Threshold, pct(c.TrueAcceptRate), pct(c.FalseAcceptRate))
+			if p.AcceptedRecall < r.MinAcceptedRecall {
+				add(VerdictReview, CodeThinMargin, "At the threshold %.3f, which accepts %s of wrong poses, the cell would accept the right pose in only %s of views (%s needed): right and wrong scores lie close (margin %.3f: the 5th percentile of right scores less the 95th of wrong ones). Decide which misses the cell can afford, or scan again for a cleaner model.",
+					c.Threshold, pct(c.FalseAcceptRate), pct(p.AcceptedRecall), pct(r.MinAcceptedRecall), c.Gap)
 			}
 			if c.AUC < r.MinAUC {
-				add(VerdictReview, CodeLowAUC, "The point-difference score ranks a wrong hypothesis above a right one in %s of pairs (ROC area %.3f, %.2f needed).",
+				add(VerdictReview, CodeLowAUC, "The point-difference score ranks a wrong hypothesis above a right one in %s of pairs (ROC area %.3f, %.2f needed): its threshold cannot separate them well.",
 					pct(1-c.AUC), c.AUC, r.MinAUC)
 			}
 		}

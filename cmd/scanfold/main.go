@@ -70,6 +70,8 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 			tablesCommand(),
 			demoCommand(),
 			catalogCommand(),
+			checkCommand(),
+			compareCommand(),
 		},
 	}
 }
