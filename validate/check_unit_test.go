@@ -302,3 +302,31 @@ func TestDominantPlane(t *testing.T) {
 		t.Errorf("plane normal off by %.3g°, offset %v want %v", ang*180/math.Pi, d, wantD)
 	}
 }
+
+// TestAddsBelow: the early-exit test agrees with ErrorModel.ADDS (the
+// oracle) on hypotheses near and far from the truth.
+func TestAddsBelow(t *testing.T) {
+	m := boxMesh(0.06, 0.04, 0.02, 6)
+	em, err := NewErrorModel(m.Vertices, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(11, 12))
+	truth := mesh.PoseFromAxisAngle(randomUnit(rng), 1, r3.Vec{Z: 0.5})
+	lim := 0.1 * em.Diameter()
+	agree, below := 0, 0
+	for _, h := range PerturbedHypotheses(truth, m.Bounds().Center(), em.Diameter(), 60, rng) {
+		want := em.ADDS(truth, h) < lim
+		if got := addsBelow(em, truth, h, lim); got != want {
+			t.Errorf("addsBelow %v, ADDS %.4g against the limit %.4g", got, em.ADDS(truth, h), lim)
+		} else {
+			agree++
+		}
+		if want {
+			below++
+		}
+	}
+	if below == 0 || below == 60 {
+		t.Errorf("%d of 60 hypotheses below the limit: the test does not see both sides", below)
+	}
+}
