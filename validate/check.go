@@ -16,7 +16,6 @@ import (
 
 	"github.com/scanfold/scanfold/features"
 	"github.com/scanfold/scanfold/mesh"
-	"github.com/scanfold/scanfold/mesh/render"
 )
 
 // CheckInput is what Check examines: one part's model and, optionally,
@@ -589,7 +588,7 @@ func Check(ctx context.Context, in CheckInput, opt CheckOptions) (*CheckResult, 
 
 	// 4. Real frames and confusers need the calibrated scorer.
 	if len(in.Frames) > 0 {
-		if res.Real, err = pc.realFrames(ctx, in.Frames, res, opt, workers, progress); err != nil {
+		if res.Real, err = pc.realFrames(ctx, in.Frames, supportZ, res, opt, workers, progress); err != nil {
 			return nil, err
 		}
 		lap("real frames")
@@ -812,15 +811,6 @@ func forEach(ctx context.Context, n, workers int, f func(i int) error) error {
 	return nil
 }
 
-// sceneClouds returns the scene cloud for voting (at spacing) and the
-// dense cloud for refinement (at spacing/4) of a depth image, without
-// the points less than margin above the plane {x : up·x + d = 0}
-// (camera frame; up pointing away from the table). A zero up keeps
-// every point.
-func sceneClouds(depth []float32, intr mesh.Intrinsics, up r3.Vec, d, margin, spacing float64) (scene, dense *mesh.Cloud, err error) {
-	return maskedClouds(depth, intr, planeMask(depth, intr, up, d, margin), spacing)
-}
-
 // planeMask marks the pixels with a depth whose point lies more than
 // margin above the plane {x : up·x + d = 0}; a zero up marks every
 // pixel with a depth.
@@ -938,7 +928,11 @@ func segmentMasks(depth []float32, intr mesh.Intrinsics, mask []bool, minPixels 
 // piece's dense cloud). The hypotheses of all pieces are returned,
 // most votes first.
 func (pc *partCheck) voteScene(depth []float32, intr mesh.Intrinsics, up r3.Vec, d float64) ([]features.Hypothesis, error) {
-	mask := planeMask(depth, intr, up, d, pc.opt.PlaneMargin)
+	return pc.voteMasked(depth, intr, planeMask(depth, intr, up, d, pc.opt.PlaneMargin))
+}
+
+// voteMasked is voteScene on the marked pixels.
+func (pc *partCheck) voteMasked(depth []float32, intr mesh.Intrinsics, mask []bool) ([]features.Hypothesis, error) {
 	var all []features.Hypothesis
 	for _, seg := range segmentMasks(depth, intr, mask, pc.opt.MinSegmentPixels) {
 		scene, dense, err := maskedClouds(depth, intr, seg, pc.tables.Spacing)
@@ -1455,16 +1449,3 @@ const (
 	ScorerPoint    = "point difference"
 	ScorerVotes    = "PPF votes"
 )
-
-// sortedCopy returns x sorted.
-func sortedCopy(x []float64) []float64 {
-	s := append([]float64(nil), x...)
-	sort.Float64s(s)
-	return s
-}
-
-// modelRender renders the model alone at a pose into a frame with the
-// given renderer (helper for real frames and pictures).
-func modelRender(r *render.Renderer, fr *render.Frame, m *mesh.Mesh, pose mesh.Pose) error {
-	return r.RenderInto(fr, []render.Object{{Mesh: m, ModelToCam: pose}}, render.DefaultOptions())
-}

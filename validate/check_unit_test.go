@@ -275,9 +275,10 @@ func TestSegmentMasks(t *testing.T) {
 	}
 }
 
-// TestDominantPlane: the table under a box in a rendered view is found
-// within a millimetre and a degree of its true plane.
-func TestDominantPlane(t *testing.T) {
+// TestScenePlanes: the table under a box in a rendered view is found
+// within a millimetre and a degree of its true plane, and the box's own
+// faces are not taken for planes.
+func TestScenePlanes(t *testing.T) {
 	intr := mesh.DefaultIntrinsics()
 	camToWorld, err := mesh.LookAt(r3.Vec{Y: -0.3, Z: 0.4}, r3.Vec{}, r3.Vec{Z: 1})
 	if err != nil {
@@ -290,10 +291,11 @@ func TestDominantPlane(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	up, d, ok, err := dominantPlane(f.Depth, intr, 0.004, 0.0025, 1)
-	if err != nil || !ok {
-		t.Fatalf("no plane: %v", err)
+	planes, err := scenePlanes(f.Depth, intr, 0.004, 0.0025, 1)
+	if err != nil || len(planes) != 1 {
+		t.Fatalf("%d planes: %v", len(planes), err)
 	}
+	up, d := planes[0].up, planes[0].d
 	wantUp := worldToCam.Rotate(r3.Vec{Z: 1})
 	wantD := -r3.Dot(wantUp, worldToCam.T)
 	// Noise-free render: the least-squares plane is exact up to the

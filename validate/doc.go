@@ -36,8 +36,19 @@
 //   - Reports (report.go, report_html.go, pictures.go): the verdict with
 //     its reasons and key figures as JSON, and a self-contained HTML
 //     folder with PNG pictures, written atomically.
+//   - The check (check.go, verdict.go, realframes.go, confusers.go,
+//     openings.go, canonical.go, report_check.go): Check runs the whole
+//     proof of a model — synthetic views voted with its PPF tables
+//     (package features) and scored by both scorers side by side, the
+//     weights and the acceptance threshold calibrated on them, its
+//     openings, the sweep's own frames, its coverage, the other parts it
+//     could be confused with, the comparison with its drawing model —
+//     and VerdictRules, every threshold of the verdict in one place,
+//     judges it ready, review or rescan with reasons. CanonicalFrame
+//     gives a part its catalog frame.
 //
-// validate imports mesh, mesh/render and mesh/parts only.
+// validate imports mesh, mesh/render, mesh/parts and features only; it
+// never reads a sweep (the caller passes real frames and camera poses).
 //
 // # Frames and units
 //
@@ -75,7 +86,14 @@
 // Coverage, Compare and NewSurface refuse a mesh without a face of
 // positive area (mesh.ErrDegenerate); faces of zero area are neither
 // seen nor unseen and never the closest face; no frames give zero
-// coverage. Scores need at least one point on each side. The grey
+// coverage. Scores need at least one point on each side. Check needs a
+// model with faces and the tables of its cloud; a model outside the
+// plausible size of VerdictRules is judged rescan without rendering; a
+// view without a hypothesis counts as missed by every scorer; a
+// calibration without right or wrong hypotheses is left out and argues
+// for review. A closed surface has no openings; CanonicalFrame refuses a
+// surface without area and, for one without principal directions, falls
+// back to the input's axes. The grey
 // (S = 0) colours have no hue: HSVFromRGB reports H = 0 and the colour
 // distance ignores it.
 //

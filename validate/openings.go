@@ -40,7 +40,8 @@ type Opening struct {
 	// straight edge.
 	Closed bool `json:"closed"`
 
-	loop []uint32
+	loop    []uint32
+	vecArea r3.Vec // Σ ½(b − a)×(c − a) over the patch's triangles
 }
 
 // Openings is what FindOpenings found.
@@ -55,8 +56,11 @@ type Openings struct {
 	// resting face.
 	HoleArea     float64 `json:"hole_area_m2"`
 	HoleFraction float64 `json:"hole_fraction"`
-	// SupportArea sums the patches of openings on the support (the face
-	// the part stood on).
+	// SupportArea is the area of the openings on the support (the face
+	// the part stood on): the length of the sum of their patches'
+	// vector areas, so that the rim of a hole through the resting face
+	// (which runs the other way round) takes its disc off the outline's
+	// patch instead of adding it.
 	SupportArea float64 `json:"support_area_m2"`
 	// SupportZ is the support's height in the part frame (NaN when not
 	// known), and SupportGap how far above it the surface's lowest
@@ -162,6 +166,7 @@ func FindOpenings(m *mesh.Mesh, supportZ, tol float64) (*Openings, error) {
 		start[edges[i].a] = i
 	}
 	taken := make([]bool, len(edges))
+	var supportVec r3.Vec
 	next := func(v uint32) int {
 		i, ok := start[v]
 		if !ok {
@@ -199,12 +204,13 @@ func FindOpenings(m *mesh.Mesh, supportZ, tol float64) (*Openings, error) {
 		op.Closed = closed
 		op.OnSupport = !math.IsNaN(supportZ) && op.MaxZ-supportZ <= tol && op.MinZ-supportZ >= -tol
 		if op.OnSupport {
-			out.SupportArea += op.Area
+			supportVec = r3.Add(supportVec, op.vecArea)
 		} else {
 			out.HoleArea += op.Area
 		}
 		out.List = append(out.List, op)
 	}
+	out.SupportArea = r3.Norm(supportVec)
 	sort.SliceStable(out.List, func(i, j int) bool { return out.List[i].Area > out.List[j].Area })
 	if total := out.SurfaceArea + out.HoleArea + out.SupportArea; total > 0 {
 		out.HoleFraction = out.HoleArea / total
@@ -240,6 +246,7 @@ func measureOpening(m *mesh.Mesh, loop []uint32) Opening {
 	} else {
 		op.Centroid = c
 	}
+	op.vecArea = nsum
 	if r3.Norm(nsum) > 1e-3*op.Area {
 		op.Normal = mesh.Normalize(nsum)
 	}

@@ -56,9 +56,9 @@ type RealFrameFigures struct {
 	// ColorMismatch the share of them whose colour differs.
 	ColorPoints   int     `json:"color_points"`
 	ColorMismatch float64 `json:"color_mismatch"`
-	// PlaneRemoved reports that a dominant plane (the support, a wall)
-	// was found and removed before voting.
-	PlaneRemoved bool `json:"plane_removed"`
+	// PlanesRemoved counts the large planes (the support, a turntable's
+	// plate, a wall) found and removed before voting (scenePlanes).
+	PlanesRemoved int `json:"planes_removed"`
 }
 
 // RealFrameResult is the real-frame check.
@@ -99,7 +99,7 @@ func pickFrames(frames []RealFrame, n int) []RealFrame {
 
 // realFrames scores the model against real frames with the calibrated
 // point scorer.
-func (pc *partCheck) realFrames(ctx context.Context, frames []RealFrame, res *CheckResult, opt CheckOptions, workers int,
+func (pc *partCheck) realFrames(ctx context.Context, frames []RealFrame, supportZ float64, res *CheckResult, opt CheckOptions, workers int,
 	progress func(string, int, int)) (*RealFrameResult, error) {
 	frames = pickFrames(frames, opt.MaxRealFrames)
 	for i, f := range frames {
@@ -125,7 +125,7 @@ func (pc *partCheck) realFrames(ctx context.Context, frames []RealFrame, res *Ch
 	progress("real frames", 0, len(frames))
 	err := forEach(ctx, len(frames), workers, func(i int) error {
 		f := frames[i]
-		fig, bad, err := pc.realFrame(f, threshold, opt)
+		fig, bad, err := pc.realFrame(f, supportZ, threshold, opt)
 		if err != nil {
 			return fmt.Errorf("validate: real frame %d: %w", f.Index, err)
 		}
@@ -163,19 +163,27 @@ func (pc *partCheck) realFrames(ctx context.Context, frames []RealFrame, res *Ch
 }
 
 // realFrame checks one frame; it returns the figures and the number of
-// colour-mismatched points.
-func (pc *partCheck) realFrame(f RealFrame, threshold float64, opt CheckOptions) (RealFrameFigures, int, error) {
+// colour-mismatched points. The large planes of the frame are removed
+// before voting (scenePlanes), and the support the part stood on too
+// when its height supportZ is known (not NaN).
+func (pc *partCheck) realFrame(f RealFrame, supportZ, threshold float64, opt CheckOptions) (RealFrameFigures, int, error) {
 	fig := RealFrameFigures{Index: f.Index, Error: math.Inf(1)}
 	obs, err := NewObservation(f.Depth, f.Color, f.Intr)
 	if err != nil {
 		return fig, 0, err
 	}
-	up, d, ok, err := dominantPlane(f.Depth, f.Intr, pc.tables.Spacing, opt.PlaneMargin, opt.Seed^uint64(f.Index))
+	planes, err := scenePlanes(f.Depth, f.Intr, pc.tables.Spacing, opt.PlaneMargin, opt.Seed^uint64(f.Index))
 	if err != nil {
 		return fig, 0, err
 	}
-	fig.PlaneRemoved = ok
-	hyps, err := pc.voteScene(f.Depth, f.Intr, up, d)
+	if !math.IsNaN(supportZ) {
+		// The support the part stood on, where the reference pose puts
+		// it (part frame z = supportZ), as a cell knows its bin floor.
+		up := f.ModelToCam.Rotate(r3.Vec{Z: 1})
+		planes = append([]scenePlane{{up: up, d: -r3.Dot(up, f.ModelToCam.Apply(r3.Vec{Z: supportZ}))}}, planes...)
+	}
+	fig.PlanesRemoved = len(planes)
+	hyps, err := pc.voteMasked(f.Depth, f.Intr, planesMask(f.Depth, f.Intr, planes, opt.PlaneMargin))
 	if err != nil {
 		return fig, 0, err
 	}
@@ -244,73 +252,122 @@ func colorAgreement(m *ScoreModel, modelToCam mesh.Pose, obs *Observation, opt P
 	return checked, differ
 }
 
-// dominantPlane finds the largest plane in a depth image by RANSAC
+// scenePlane is a plane {x : up·x + d = 0} in a camera frame, up
+// pointing toward the camera.
+type scenePlane struct {
+	up r3.Vec
+	d  float64
+}
+
+// ransacIterations is the number of random planes tried per plane
+// found: 400 find a plane holding a tenth of the points with
+// probability 1 − (1 − 0.1³)⁴⁰⁰ = 0.33, one holding a quarter with
+// 0.998 (the RANSAC bound, Fischler & Bolles 1981).
+const ransacIterations = 400
+
+// maxPlanes bounds the planes removed from a real frame: the support
+// (a table, a turntable's plate on its table), and a wall behind.
+const maxPlanes = 3
+
+// scenePlanes finds the large planes of a depth image by RANSAC
 // (Fischler & Bolles 1981, CACM 24(6), DOI 10.1145/358669.358692) on
-// the points thinned to spacing: planes through three random points,
-// the one with the most points within margin wins if it holds at least
-// a quarter of them, refitted by least squares on its inliers (the
-// smallest principal axis of their covariance). The plane is returned
-// as (up, d) with up·x + d = 0, up pointing toward the camera. 200
-// iterations find a plane holding a quarter of the points with
-// probability 1 − (1 − 0.25³)²⁰⁰ > 0.95 (the RANSAC bound).
-func dominantPlane(depth []float32, intr mesh.Intrinsics, spacing, margin float64, seed uint64) (r3.Vec, float64, bool, error) {
+// the points thinned to spacing, one after the other: planes through
+// three random points, the one with the most points within margin wins
+// if it holds at least a twentieth of all the points (so that a part's
+// own faces, a small share of the view, do not count), and
+// is refitted by least squares on its inliers (the smallest principal
+// axis of their covariance); its inliers are then set aside and the
+// next plane is sought, up to maxPlanes, each from ransacIterations
+// random planes. A small plane may be missed; its piece is then voted
+// on with the rest.
+func scenePlanes(depth []float32, intr mesh.Intrinsics, spacing, margin float64, seed uint64) ([]scenePlane, error) {
 	o := mesh.DefaultDepthCloudOptions()
 	o.Spacing = spacing
 	c, err := mesh.DepthCloud(depth, intr, nil, nil, o)
 	if err != nil {
-		return r3.Vec{}, 0, false, err
+		return nil, err
 	}
 	pts := c.Points
-	if len(pts) < 30 || !(margin > 0) {
-		return r3.Vec{}, 0, false, nil
+	if !(margin > 0) {
+		return nil, nil
 	}
 	rng := rand.New(rand.NewPCG(seed, 0x91a4e))
-	bestN := 0
-	var bestUp r3.Vec
-	var bestD float64
-	for it := 0; it < 200; it++ {
-		a, b, cc := pts[rng.IntN(len(pts))], pts[rng.IntN(len(pts))], pts[rng.IntN(len(pts))]
-		n := r3.Cross(r3.Sub(b, a), r3.Sub(cc, a))
-		if r3.Norm(n) < 1e-12 {
+	var out []scenePlane
+	total := len(pts)
+	for len(out) < maxPlanes && len(pts) >= 30 {
+		bestN := 0
+		var bestUp r3.Vec
+		var bestD float64
+		for it := 0; it < ransacIterations; it++ {
+			a, b, cc := pts[rng.IntN(len(pts))], pts[rng.IntN(len(pts))], pts[rng.IntN(len(pts))]
+			n := r3.Cross(r3.Sub(b, a), r3.Sub(cc, a))
+			if r3.Norm(n) < 1e-12 {
+				continue
+			}
+			n = mesh.Normalize(n)
+			d := -r3.Dot(n, a)
+			cnt := 0
+			for _, p := range pts {
+				if math.Abs(r3.Dot(n, p)+d) <= margin {
+					cnt++
+				}
+			}
+			if cnt > bestN {
+				bestN, bestUp, bestD = cnt, n, d
+			}
+		}
+		if bestN < total/20 || bestN < 3 {
+			break
+		}
+		var in, rest []r3.Vec
+		for _, p := range pts {
+			if math.Abs(r3.Dot(bestUp, p)+bestD) <= margin {
+				in = append(in, p)
+			} else {
+				rest = append(rest, p)
+			}
+		}
+		cen := centroidOf(in)
+		var cov [3][3]float64
+		for _, p := range in {
+			q := r3.Sub(p, cen)
+			v := [3]float64{q.X, q.Y, q.Z}
+			for i := 0; i < 3; i++ {
+				for j := 0; j < 3; j++ {
+					cov[i][j] += v[i] * v[j]
+				}
+			}
+		}
+		up := eigenSym3(cov)[0]
+		if r3.Dot(up, cen) > 0 { // the camera (origin) on the positive side
+			up = r3.Scale(-1, up)
+		}
+		out = append(out, scenePlane{up: up, d: -r3.Dot(up, cen)})
+		pts = rest
+	}
+	return out, nil
+}
+
+// planesMask marks the pixels with a depth whose point lies farther
+// than margin from every plane: the planes' own points go, and nothing
+// beyond them (cutting away all that lies below a turntable's plate
+// would also cut the background's objects into part-sized pieces).
+func planesMask(depth []float32, intr mesh.Intrinsics, planes []scenePlane, margin float64) []bool {
+	mask := planeMask(depth, intr, r3.Vec{}, 0, margin)
+	w := intr.Width
+	for k, on := range mask {
+		if !on {
 			continue
 		}
-		n = mesh.Normalize(n)
-		d := -r3.Dot(n, a)
-		cnt := 0
-		for _, p := range pts {
-			if math.Abs(r3.Dot(n, p)+d) <= margin {
-				cnt++
-			}
-		}
-		if cnt > bestN {
-			bestN, bestUp, bestD = cnt, n, d
-		}
-	}
-	if bestN < len(pts)/4 {
-		return r3.Vec{}, 0, false, nil
-	}
-	var in []r3.Vec
-	for _, p := range pts {
-		if math.Abs(r3.Dot(bestUp, p)+bestD) <= margin {
-			in = append(in, p)
-		}
-	}
-	cen := centroidOf(in)
-	var cov [3][3]float64
-	for _, p := range in {
-		q := r3.Sub(p, cen)
-		v := [3]float64{q.X, q.Y, q.Z}
-		for i := 0; i < 3; i++ {
-			for j := 0; j < 3; j++ {
-				cov[i][j] += v[i] * v[j]
+		p := intr.BackProject(float64(k%w), float64(k/w), float64(depth[k]))
+		for _, pl := range planes {
+			if math.Abs(r3.Dot(pl.up, p)+pl.d) <= margin {
+				mask[k] = false
+				break
 			}
 		}
 	}
-	up := eigenSym3(cov)[0]
-	if r3.Dot(up, cen) > 0 { // the camera (origin) on the positive side
-		up = r3.Scale(-1, up)
-	}
-	return up, -r3.Dot(up, cen), true, nil
+	return mask
 }
 
 // median returns the median of x (NaN when empty).
