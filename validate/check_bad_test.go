@@ -189,10 +189,10 @@ func TestCheckWrongUnit(t *testing.T) {
 }
 
 // TestCheckHoles: a patch of triangles removed from a side of the valve
-// (within 20 mm of a point on its rim: over 1000 mm², about 6 % of its
-// surface) makes the model open there; the check measures the opening
-// and asks for a rescan. A smaller hole (8 mm, about 1 %) asks for a
-// review. The closed model has no opening.
+// (within 32 mm of a point on its rim: over 2000 mm², more than a tenth
+// of its surface) makes the model open there; the check measures the
+// opening and asks for a rescan. A smaller hole (12 mm, about 2 %) asks
+// for a review. The closed model has no opening.
 func TestCheckHoles(t *testing.T) {
 	cp := demoCheckPart(t, "valve")
 	good := runCheck(t, CheckInput{Name: "valve", Model: cp.mesh, Tables: cp.tables, SupportKnown: true}, quickOptions())
@@ -200,9 +200,9 @@ func TestCheckHoles(t *testing.T) {
 	if n := len(good.Openings.List); n != 0 {
 		t.Errorf("closed valve has %d openings", n)
 	}
-	big := withHole(cp.mesh, r3.Vec{X: -1, Y: 1}, 0.02)
+	big := withHole(cp.mesh, r3.Vec{X: -1, Y: 1}, 0.032)
 	res := runCheck(t, CheckInput{Name: "valve with a hole", Model: big, Tables: tablesFor(t, big), SupportKnown: true}, quickOptions())
-	expectReason(t, "20 mm hole", res, CodeHoles, VerdictRescan)
+	expectReason(t, "32 mm hole", res, CodeHoles, VerdictRescan)
 	// The patch closing the hole spans the rim of the removed region; a
 	// region bent over an edge has more area than its patch and a flat
 	// one the same: between half and all of the removed faces' area,
@@ -211,9 +211,9 @@ func TestCheckHoles(t *testing.T) {
 	if a := res.Openings.HoleArea; a < 0.5*removed || a > 1.05*removed {
 		t.Errorf("hole patch %.0f mm², removed area %.0f mm²", a*1e6, removed*1e6)
 	}
-	small := withHole(cp.mesh, r3.Vec{X: -1, Y: 1}, 0.008)
+	small := withHole(cp.mesh, r3.Vec{X: -1, Y: 1}, 0.012)
 	res = runCheck(t, CheckInput{Name: "valve with a small hole", Model: small, Tables: tablesFor(t, small), SupportKnown: true}, quickOptions())
-	expectReason(t, "8 mm hole", res, CodeHoles, VerdictReview)
+	expectReason(t, "12 mm hole", res, CodeHoles, VerdictReview)
 }
 
 // TestCheckMissingUnderside: the bracket with everything below 20 % of

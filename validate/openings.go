@@ -31,10 +31,17 @@ type Opening struct {
 	// and highest vertex.
 	MinZ float64 `json:"min_z_m"`
 	MaxZ float64 `json:"max_z_m"`
-	// OnSupport reports that the whole rim lies on the support the part
-	// stood on (within the tolerance of FindOpenings): the face the part
-	// rested on, which one sweep cannot see.
+	// OnSupport reports an opening the part stood on: its whole rim
+	// lies on the support (within the tolerance of FindOpenings; the rim
+	// of a hole through the resting face too), or its patch faces down
+	// (within 45°) and its rim reaches down to the support — the resting
+	// face, with whatever unseen underside joins it, which one sweep
+	// cannot see.
+	// Underside reports another opening whose patch faces down: the
+	// underside of an overhang (a port, a flange), which a sweep from
+	// above cannot see either. The others are holes.
 	OnSupport bool `json:"on_support"`
+	Underside bool `json:"underside"`
 	// Closed is false for a chain of boundary edges that did not return
 	// to its start (a non-manifold rim); its patch closes it with a
 	// straight edge.
@@ -50,12 +57,15 @@ type Openings struct {
 	List []Opening `json:"openings"`
 	// SurfaceArea is the area of the surface (m²).
 	SurfaceArea float64 `json:"surface_area_m2"`
-	// HoleArea sums the patches of openings not on the support and
-	// HoleFraction is HoleArea / (SurfaceArea + HoleArea + SupportArea):
-	// the share of the closed surface that is missing, apart from the
-	// resting face.
-	HoleArea     float64 `json:"hole_area_m2"`
-	HoleFraction float64 `json:"hole_fraction"`
+	// HoleArea sums the patches of the holes (openings neither on the
+	// support nor facing down) and HoleFraction is its share of the
+	// closed surface (SurfaceArea + HoleArea + UndersideArea +
+	// SupportArea); UndersideArea and UndersideFraction likewise for the
+	// undersides.
+	HoleArea          float64 `json:"hole_area_m2"`
+	HoleFraction      float64 `json:"hole_fraction"`
+	UndersideArea     float64 `json:"underside_area_m2"`
+	UndersideFraction float64 `json:"underside_fraction"`
 	// SupportArea is the area of the openings on the support (the face
 	// the part stood on): the length of the sum of their patches'
 	// vector areas, so that the rim of a hole through the resting face
@@ -76,8 +86,9 @@ type Openings struct {
 // them. supportZ is the height of the plane the part stood on during
 // its sweep (part frame; NaN when unknown); tol the distance within
 // which a rim vertex counts as lying on it (0: 2 % of the surface's
-// height, at least 1 mm, which allows for the support crop of a fusion
-// a voxel or two above the plane).
+// height, at least 3 mm, which allows for the support crop of a fusion,
+// 0.75 voxel above the plane, and a voxel of the rim's own wander with
+// the default 2 mm voxels).
 //
 // Loops: every boundary edge is taken in the direction its one face
 // runs it; at each vertex the loop continues along an unused outgoing
@@ -115,7 +126,7 @@ func FindOpenings(m *mesh.Mesh, supportZ, tol float64) (*Openings, error) {
 	}
 	out.Height = hi - lo
 	if tol <= 0 {
-		tol = math.Max(0.02*out.Height, 0.001)
+		tol = math.Max(0.02*out.Height, 0.003)
 	}
 	if !math.IsNaN(supportZ) {
 		out.SupportGap = math.Max(0, lo-supportZ)
@@ -202,18 +213,25 @@ func FindOpenings(m *mesh.Mesh, supportZ, tol float64) (*Openings, error) {
 		}
 		op := measureOpening(m, loop)
 		op.Closed = closed
-		op.OnSupport = !math.IsNaN(supportZ) && op.MaxZ-supportZ <= tol && op.MinZ-supportZ >= -tol
-		if op.OnSupport {
+		down := op.Normal.Z < -math.Sqrt2/2
+		flat := op.MaxZ-supportZ <= tol && op.MinZ-supportZ >= -tol // the whole rim on the support
+		op.OnSupport = !math.IsNaN(supportZ) && (flat || (down && math.Abs(op.MinZ-supportZ) <= tol))
+		op.Underside = down && !op.OnSupport
+		switch {
+		case op.OnSupport:
 			supportVec = r3.Add(supportVec, op.vecArea)
-		} else {
+		case op.Underside:
+			out.UndersideArea += op.Area
+		default:
 			out.HoleArea += op.Area
 		}
 		out.List = append(out.List, op)
 	}
 	out.SupportArea = r3.Norm(supportVec)
 	sort.SliceStable(out.List, func(i, j int) bool { return out.List[i].Area > out.List[j].Area })
-	if total := out.SurfaceArea + out.HoleArea + out.SupportArea; total > 0 {
+	if total := out.SurfaceArea + out.HoleArea + out.UndersideArea + out.SupportArea; total > 0 {
 		out.HoleFraction = out.HoleArea / total
+		out.UndersideFraction = out.UndersideArea / total
 	}
 	return out, nil
 }

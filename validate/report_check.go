@@ -167,8 +167,8 @@ func (res *CheckResult) ReportInputs(opt PictureOptions) ReportInputs {
 		patched := o.PatchedMesh(res.model, opt.ModelColor, mesh.RGB{R: 255, G: 0, B: 255})
 		if img, err := SixSides(patched, opt); err == nil {
 			in.Extra = append(in.Extra, ExtraPicture{File: "openings.png", Title: "Openings of the model",
-				Caption: fmt.Sprintf("The model from six sides with its %d openings closed by magenta patches (%s in holes, %s where it stood on its support).",
-					len(o.List), fmtArea(o.HoleArea), fmtArea(o.SupportArea)),
+				Caption: fmt.Sprintf("The model from six sides with its %d openings closed by magenta patches (%s in holes, %s on undersides facing down, %s where it stood on its support).",
+					len(o.List), fmtArea(o.HoleArea), fmtArea(o.UndersideArea), fmtArea(o.SupportArea)),
 				Image: img})
 		}
 	}
