@@ -2,6 +2,7 @@ package validate
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"image"
 	"math"
@@ -378,4 +379,18 @@ func median(x []float64) float64 {
 	s := append([]float64(nil), x...)
 	sort.Float64s(s)
 	return percentileSorted(s, 0.5)
+}
+
+// MarshalJSON writes the figures with a null error where no hypothesis
+// was found (JSON has no infinity).
+func (f RealFrameFigures) MarshalJSON() ([]byte, error) {
+	type plain RealFrameFigures
+	out := struct {
+		plain
+		Error *float64 `json:"error_m"`
+	}{plain: plain(f)}
+	if !math.IsInf(f.Error, 0) && !math.IsNaN(f.Error) {
+		out.Error = &f.Error
+	}
+	return json.Marshal(out)
 }
