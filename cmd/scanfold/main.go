@@ -66,6 +66,7 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 			versionCommand(),
 			synthCommand(),
 			fuseCommand(),
+			onboardCommand(),
 			sampleCommand(),
 			tablesCommand(),
 			demoCommand(),

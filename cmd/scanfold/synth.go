@@ -5,7 +5,6 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"path/filepath"
 	"strings"
 	"time"
@@ -71,43 +70,6 @@ func synthCommand() *cli.Command {
 			opt.PartName = name
 			opt.Overwrite = c.Bool("force")
 			return runSynth(c, c.String("out"), name, part, opt)
-		},
-	}
-}
-
-func demoCommand() *cli.Command {
-	return &cli.Command{
-		Name:            "demo",
-		OnUsageError:    usageError,
-		HideHelpCommand: true,
-		Usage:           "synthesise a demo sweep of the bracket and summarise what was written",
-		Description: "Writes a 36-frame turntable sweep of the demo part 'bracket' into a new temporary folder " +
-			"(or --out) and prints what was written. Later versions run the whole pipeline on it.",
-		Flags: append([]cli.Flag{
-			&cli.StringFlag{Name: "out", Usage: "folder to write the demo sweep to (default: a new temporary folder)", TakesFile: true},
-		}, synthFlags()...),
-		Action: func(c *cli.Context) error {
-			if c.Args().Len() > 0 {
-				return fmt.Errorf("demo takes no arguments, got %q", c.Args().First())
-			}
-			out := c.String("out")
-			if out == "" {
-				tmp, err := os.MkdirTemp("", "scanfold-demo-*")
-				if err != nil {
-					return err
-				}
-				out = filepath.Join(tmp, "sweep")
-			}
-			part, err := reconstruct.SynthPartMesh("bracket", 0)
-			if err != nil {
-				return err
-			}
-			opt, err := synthOptions(c)
-			if err != nil {
-				return err
-			}
-			opt.PartName = "bracket"
-			return runSynth(c, out, "bracket", part, opt)
 		},
 	}
 }
