@@ -232,7 +232,9 @@ func Onboard(ctx context.Context, sweepDir, name string, store *catalog.Store, o
 	// Check.
 	t = time.Now()
 	in := validate.CheckInput{Name: name, Model: model, Tables: tables, Cloud: cloud}
-	in.SupportZ = validate.PlaneHeight(partToSweep, fused.Report.Support.Normal, fused.Report.Support.Offset)
+	// The model ends where the fusion cut it, CropHeight above the
+	// support: that is where the check must look for the face it stood on.
+	in.SupportZ = validate.PlaneHeight(partToSweep, fused.Report.Support.Normal, fused.Report.Support.Offset-fused.Report.CropHeight)
 	in.SupportKnown = true
 	if in.Frames, err = realFrames(sw, &fused.Report, partToSweep, opt.RealFrames); err != nil {
 		return nil, err

@@ -77,9 +77,8 @@ type FuseOptions struct {
 	// unobserved when the mesh is extracted.
 	// DEFAULT: 1
 	MinWeight float32
-	// CropHeight removes the support surface: triangles whose vertices all
-	// lie lower than this above the support are dropped (metres). 0 means
-	// 0.75 voxel.
+	// CropHeight removes the support surface: the mesh is cut along the
+	// plane this far above the support (metres). 0 means 0.75 voxel.
 	// DEFAULT: 0
 	CropHeight float64
 	// MinComponentFraction drops connected pieces smaller than this
@@ -169,11 +168,15 @@ type FuseReport struct {
 	Vertices    int            `json:"vertices"`
 	Triangles   int            `json:"triangles"`
 	CropRemoved int            `json:"support_triangles_removed"`
-	Components  int            `json:"components_removed"`
-	Area        float64        `json:"area_m2"`
-	Volume      float64        `json:"volume_m3"` // enclosed volume; meaningful when Watertight
-	Watertight  bool           `json:"watertight"`
-	Boundary    float64        `json:"boundary_length_m"`
+	// CropHeight is how far above the support the surface was cut
+	// (metres): the model's rim where the part stood lies on the plane
+	// Support moved up by it.
+	CropHeight float64 `json:"crop_height_m"`
+	Components int     `json:"components_removed"`
+	Area       float64 `json:"area_m2"`
+	Volume     float64 `json:"volume_m3"` // enclosed volume; meaningful when Watertight
+	Watertight bool    `json:"watertight"`
+	Boundary   float64 `json:"boundary_length_m"`
 	// CamToWorld holds the pose used for each frame (frame order); frames
 	// that were skipped hold the identity and appear in Skipped.
 	CamToWorld []mesh.Pose       `json:"-"`
@@ -859,16 +862,12 @@ func (f *fuser) cleanUp(m *mesh.Mesh) (*mesh.Mesh, error) {
 	if crop == 0 {
 		crop = 0.75 * f.opt.TSDF.VoxelSize
 	}
+	// Cut the surface along the plane crop above the support, so the
+	// part's rim where it stood lies exactly there (CropHeight in the
+	// report tells a later stage where the model ends).
 	plane := f.roi.Plane
-	kept := m.Faces[:0]
-	for _, fc := range m.Faces {
-		if plane.Distance(m.Vertices[fc[0]]) < crop && plane.Distance(m.Vertices[fc[1]]) < crop && plane.Distance(m.Vertices[fc[2]]) < crop {
-			f.rep.CropRemoved++
-			continue
-		}
-		kept = append(kept, fc)
-	}
-	m.Faces = kept
+	f.rep.CropHeight = crop
+	f.rep.CropRemoved = m.ClipPlane(plane.Normal, plane.Offset-crop)
 	if len(m.Faces) == 0 {
 		return nil, fmt.Errorf("%w: the volume holds no surface above the support", ErrNoPart)
 	}
