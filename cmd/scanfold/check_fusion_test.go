@@ -98,8 +98,8 @@ func fusedCheckInput(t *testing.T, name string, frames int) validate.CheckInput 
 // frames find it where the fusion put it. Its recall on synthetic views
 // is measured and logged: a 2 mm fusion is rougher than the demo
 // meshes, and on this sweep the point-difference scorer finds it in
-// 75 % of 12 views (see the report to the lead), so the verdict is not
-// asserted.
+// fewer than 80 % of 12 views (67–75 % as the fusion has changed), so
+// the verdict, rescan for that recall, is not asserted.
 func TestCheckCleanFusion(t *testing.T) {
 	if testing.Short() {
 		t.Skip("synthesises, fuses and checks a sweep")
