@@ -114,8 +114,10 @@ type CheckOptions struct {
 	// DEFAULT: 0
 	RefineSpacing float64
 	// RefineIterations bounds each of the two ICP stages of the
-	// refinement. On the demo parts' check views 8 found right poses as
-	// often as 15 (the second stage starts close), at half the time.
+	// refinement. On 16 check views each of the valve, bracket and
+	// labelbox, 8 found right poses as often as 15 (the second stage
+	// starts close), and voting with refinement took 0.26 instead of
+	// 0.34 CPU-seconds a view for the valve.
 	// DEFAULT: 8
 	RefineIterations int
 	// MinSegmentPixels: connected pieces of the scene with fewer pixels
@@ -1050,8 +1052,9 @@ const maxExpand = 24
 // minReferences is the fewest reference points a piece is voted with
 // (while it has that many points): Drost et al. (2010) take every fifth
 // scene point, which on a piece of a hundred points would leave twenty.
-// On the demo parts' check views, 50 found the part as often as 100 at
-// two thirds of the voting time.
+// On 16 check views each of the valve, bracket and labelbox, 50 found
+// the part as often as 100, with voting and refinement at 72–83 % of
+// the CPU time.
 const minReferences = 50
 
 // view processes one rendered scene into out.
