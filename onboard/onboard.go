@@ -44,7 +44,8 @@ import (
 // Options configures Onboard. Start from DefaultOptions.
 type Options struct {
 	// Fuse turns the sweep into the mesh.
-	// DEFAULT: reconstruct.DefaultFuseOptions()
+	// DEFAULT: reconstruct.DefaultFuseOptions() with 1.5 mm voxels (the
+	// resolution at which the fusion targets were measured)
 	Fuse reconstruct.FuseOptions
 	// Sample makes the oriented cloud the tables are built from.
 	// DEFAULT: mesh.DefaultSampleOptions() (5 % of the diameter, Drost et
@@ -91,8 +92,10 @@ type Options struct {
 
 // DefaultOptions returns the documented defaults.
 func DefaultOptions() Options {
+	fo := reconstruct.DefaultFuseOptions()
+	fo.TSDF.VoxelSize = 0.0015
 	return Options{
-		Fuse:          reconstruct.DefaultFuseOptions(),
+		Fuse:          fo,
 		Sample:        mesh.DefaultSampleOptions(),
 		Tables:        features.DefaultTableOptions(),
 		Check:         validate.DefaultCheckOptions(),

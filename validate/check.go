@@ -318,6 +318,11 @@ type ViewResult struct {
 	StablePose      int     `json:"stable_pose"`
 	VisibleFraction float64 `json:"visible_fraction"`
 	Clutter         int     `json:"clutter"`
+	// Unscanned is the share of the part's visible pixels that fall on
+	// surface the model lacks (its patched openings: the face it stood on
+	// during the sweep, holes); such a view asks the cell to find the
+	// part by a side the scan never saw.
+	Unscanned float64 `json:"unscanned_share"`
 	// Hypotheses are the vote's hypotheses (best votes first), then the
 	// extra ones.
 	Hypotheses []HypothesisResult `json:"hypotheses"`
@@ -362,6 +367,11 @@ type ScorerFigures struct {
 	Recall      float64 `json:"recall"`
 	ColorRecall float64 `json:"color_recall"`
 	MSSDRecall  float64 `json:"mssd_average_recall"`
+	// ScannedRecall is the recall over the views that show little
+	// unscanned surface (ViewResult.Unscanned ≤ maxUnscanned), Scanned
+	// their number; ExposedRecall the recall over the others.
+	ScannedRecall, ExposedRecall float64
+	Scanned                      int
 	// AcceptedRecall is the share of views whose best-ranked hypothesis
 	// is correct and scores at or above the calibrated threshold: the
 	// recall of a cell that accepts only poses scoring that high (0
@@ -546,6 +556,11 @@ func Check(ctx context.Context, in CheckInput, opt CheckOptions) (*CheckResult, 
 	if err != nil {
 		return nil, err
 	}
+	if len(res.Openings.List) > 0 {
+		c := meanColor(m)
+		pc.scene = res.Openings.PatchedMesh(m, c, c)
+		pc.scene.Normals = pc.scene.VertexNormals()
+	}
 	if len(colorSyms) < len(geomSyms) && len(geomSyms) <= maxExpand {
 		for _, g := range geomSyms {
 			if !isIdentity(g, 1e-6) {
@@ -673,7 +688,15 @@ func boxSolid(a, b, c float64, col mesh.RGB) *mesh.Mesh {
 
 // partCheck holds what every view of one part needs.
 type partCheck struct {
-	model      *mesh.Mesh
+	model *mesh.Mesh
+	// scene is what the synthetic scenes render: the model with its
+	// openings patched (Openings.PatchedMesh), standing in for the real,
+	// closed part; the cell still looks for it with the model's own
+	// tables and samples. A scan is open where the sweep never looked
+	// (the face it stood on, at least); rendered open, a resting pose
+	// that shows that side would show the model's inside as well, which
+	// no real part has.
+	scene      *mesh.Mesh
 	tables     *features.Model
 	score      *ScoreModel
 	errs       *ErrorModel
@@ -684,6 +707,51 @@ type partCheck struct {
 	opt        CheckOptions
 	calibrated PointScoreOptions
 	heldOut    [2]PointScoreOptions // weights fitted on even [0] and odd [1] views
+}
+
+// maxUnscanned is the largest share of a view's part pixels on
+// unscanned surface for which the view still counts as showing the part
+// by what was scanned: a few per cent is the rim of the face it stood on
+// seen edge-on.
+const maxUnscanned = 0.05
+
+// unscannedShare returns the share of the part's pixels in the scene
+// that fall on the patches closing the model's openings (the triangles
+// PatchedMesh appends after the model's own).
+func (pc *partCheck) unscannedShare(sc *Scene) float64 {
+	if pc.scene == pc.model {
+		return 0
+	}
+	n := uint32(len(pc.model.Faces))
+	var part, patch int
+	fr := sc.Frame
+	for i, o := range fr.Object {
+		if o != ScenePart {
+			continue
+		}
+		part++
+		if t := fr.Triangle[i]; t >= 0 && uint32(t) >= n {
+			patch++
+		}
+	}
+	if part == 0 {
+		return 0
+	}
+	return float64(patch) / float64(part)
+}
+
+// meanColor returns the mean vertex colour of m (mid grey without
+// colours): the colour a patch standing in for unseen surface gets.
+func meanColor(m *mesh.Mesh) mesh.RGB {
+	if len(m.Colors) == 0 {
+		return mesh.RGB{R: 128, G: 128, B: 128}
+	}
+	var r, g, b float64
+	for _, c := range m.Colors {
+		r, g, b = r+float64(c.R), g+float64(c.G), b+float64(c.B)
+	}
+	n := float64(len(m.Colors))
+	return mesh.RGB{R: uint8(r/n + 0.5), G: uint8(g/n + 0.5), B: uint8(b/n + 0.5)}
 }
 
 // evenSample samples about n points evenly on m (a spacing at which n
@@ -703,7 +771,7 @@ func evenSample(m *mesh.Mesh, n int, seed uint64) (*mesh.Cloud, error) {
 // shape and colour together (for MSSD and the colour-aware recall),
 // symmetric whether its shape is symmetric.
 func newPartCheck(m *mesh.Mesh, tables *features.Model, syms []mesh.Pose, symmetric bool, opt CheckOptions) (*partCheck, error) {
-	pc := &partCheck{model: m, tables: tables, symmetric: symmetric, opt: opt}
+	pc := &partCheck{model: m, scene: m, tables: tables, symmetric: symmetric, opt: opt}
 	sc, err := evenSample(m, opt.ScorePoints, opt.Seed)
 	if err != nil {
 		return nil, fmt.Errorf("validate: check score sample: %w", err)
@@ -747,7 +815,7 @@ func (pc *partCheck) runViews(ctx context.Context, poses []StablePose, clutter [
 	workers = max(1, min(workers, len(out)))
 	gens := make(chan *SceneGenerator, workers)
 	for w := 0; w < workers; w++ {
-		g, err := NewSceneGenerator(pc.model, poses, clutter, sopt)
+		g, err := NewSceneGenerator(pc.scene, poses, clutter, sopt)
 		if err != nil {
 			return err
 		}
@@ -766,6 +834,7 @@ func (pc *partCheck) runViews(ctx context.Context, poses []StablePose, clutter [
 		if err := pc.view(sc, sopt, &out[i]); err != nil {
 			return fmt.Errorf("validate: check view %d: %w", i, err)
 		}
+		out[i].Unscanned = pc.unscannedShare(sc)
 		mu.Lock()
 		done++
 		progress("views", done, len(out))
@@ -1420,6 +1489,28 @@ func (pc *partCheck) figures(res *CheckResult) {
 			}
 		}
 		f.Recall, f.ColorRecall = float64(c)/n, float64(cc)/n
+		var sc, sn, ec, en int
+		for i := range res.Views {
+			v := &res.Views[i]
+			if v.Unscanned <= maxUnscanned {
+				sn++
+				if v.Chose(k) {
+					sc++
+				}
+			} else {
+				en++
+				if v.Chose(k) {
+					ec++
+				}
+			}
+		}
+		f.Scanned = sn
+		if sn > 0 {
+			f.ScannedRecall = float64(sc) / float64(sn)
+		}
+		if en > 0 {
+			f.ExposedRecall = float64(ec) / float64(en)
+		}
 		f.MSSDRecall = AverageRecall(mssd[k], MSSDThresholds(d))
 		if k < 2 {
 			f.Right, f.Wrong = right[k], wrong[k]

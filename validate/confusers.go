@@ -144,7 +144,7 @@ func (pc *partCheck) confusers(ctx context.Context, others []NamedModel, res *Ch
 		if j < k {
 			so := sopt
 			so.Seed = opt.Seed ^ 0xc0f05e
-			g, err := NewSceneGenerator(pc.model, res.Stable.Poses, nil, so)
+			g, err := NewSceneGenerator(pc.scene, res.Stable.Poses, nil, so)
 			if err != nil {
 				return err
 			}

@@ -25,6 +25,12 @@ type VerdictRules struct {
 	// eat its cycle time.
 	// DEFAULT: 0.8
 	RescanRecall float64
+	// MinScannedViews: with at least this many views that show the part
+	// by its scanned surface, RescanRecall and ReviewRecall are judged on
+	// those views alone, and views that show unscanned surface get their
+	// own finding (a second sweep, turned over). Fewer, and all views
+	// count alike.
+	MinScannedViews int
 	// ReviewRecall: below this, review — the check's target recall
 	// (ADD/ADD-S < 10 % of the diameter in at least 9 views in 10, with
 	// clutter and occlusion) is not met.
@@ -142,6 +148,7 @@ func DefaultVerdictRules() VerdictRules {
 	return VerdictRules{
 		RescanRecall:            0.8,
 		ReviewRecall:            0.9,
+		MinScannedViews:         10,
 		MinAcceptedRecall:       0.7,
 		MinAUC:                  0.9,
 		MinDiameter:             0.005,
@@ -177,6 +184,9 @@ func (r VerdictRules) Validate() error {
 	if !(r.MinDiameter > 0 && r.MinDiameter < r.MaxDiameter) || math.IsInf(r.MaxDiameter, 0) {
 		return fmt.Errorf("validate: verdict diameters %v..%v", r.MinDiameter, r.MaxDiameter)
 	}
+	if r.MinScannedViews < 0 {
+		return fmt.Errorf("validate: verdict MinScannedViews %d, want ≥ 0", r.MinScannedViews)
+	}
 	if !(r.MinSupportGap >= 0) || !(r.MaxScaleError >= 0) {
 		return fmt.Errorf("validate: verdict MinSupportGap %v, MaxScaleError %v", r.MinSupportGap, r.MaxScaleError)
 	}
@@ -187,6 +197,7 @@ func (r VerdictRules) Validate() error {
 const (
 	CodeUnit             = "implausible-size"
 	CodeLowRecall        = "low-recall"
+	CodeUnscannedSide    = "unscanned-side"
 	CodeThinMargin       = "thin-margin"
 	CodeLowAUC           = "poor-separation"
 	CodeHoles            = "holes"
@@ -232,13 +243,26 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 		add(VerdictReview, CodeNoViews, "No synthetic views were rendered, so nothing shows that the cell finds the part: run the check with views.")
 	} else {
 		p := res.Point
+		// Recall is judged on the views that show the part by what was
+		// scanned. Views in which it rests showing a side the sweep never
+		// saw (the face it stood on) are judged apart: they ask for a
+		// second sweep with the part turned over, not a better one.
+		recall, views := p.Recall, len(res.Views)
+		exposed := views - p.Scanned
+		if exposed > 0 && p.Scanned >= r.MinScannedViews {
+			recall, views = p.ScannedRecall, p.Scanned
+		}
 		switch {
-		case p.Recall < r.RescanRecall:
-			add(VerdictRescan, CodeLowRecall, "The point-difference scorer found the part in %s of %d synthetic views (%s needed): the cell would miss it in more than 1 view in 5. The PPF votes put a right pose among their hypotheses in %s of views. Scan again with more views of every side.",
-				pct(p.Recall), len(res.Views), pct(r.RescanRecall), pct(res.Oracle))
-		case p.Recall < r.ReviewRecall:
-			add(VerdictReview, CodeLowRecall, "The point-difference scorer found the part in %s of %d synthetic views, short of the %s target; look at the wrong views on the contact sheet.",
-				pct(p.Recall), len(res.Views), pct(r.ReviewRecall))
+		case recall < r.RescanRecall:
+			add(VerdictRescan, CodeLowRecall, "The point-difference scorer found the part in %s of %d synthetic views that show it by its scanned surface (%s needed): the cell would miss it in more than 1 view in 5. The PPF votes put a right pose among their hypotheses in %s of all views. Scan again with more views of every side.",
+				pct(recall), views, pct(r.RescanRecall), pct(res.Oracle))
+		case recall < r.ReviewRecall:
+			add(VerdictReview, CodeLowRecall, "The point-difference scorer found the part in %s of %d synthetic views that show it by its scanned surface, short of the %s target; look at the wrong views on the contact sheet.",
+				pct(recall), views, pct(r.ReviewRecall))
+		}
+		if exposed > 0 && p.Scanned >= r.MinScannedViews && p.ExposedRecall < r.ReviewRecall {
+			add(VerdictReview, CodeUnscannedSide, "In %d of %d views the part rests showing surface the sweep never saw (more than %s of its pixels); there the cell found it in only %s. If the part can rest that way in the cell, scan it again turned over and file the merged model.",
+				exposed, len(res.Views), pct(maxUnscanned), pct(p.ExposedRecall))
 		}
 		if c := p.Calibration; c == nil {
 			add(VerdictReview, CodeNoCalibration, "No acceptance threshold could be calibrated: the views gave no right or no wrong hypotheses (%d right, %d wrong).", len(p.Right), len(p.Wrong))

@@ -12,6 +12,7 @@ import (
 
 	"github.com/scanfold/scanfold/catalog"
 	"github.com/scanfold/scanfold/internal/units"
+	"github.com/scanfold/scanfold/mesh/parts"
 	"github.com/scanfold/scanfold/onboard"
 	"github.com/scanfold/scanfold/reconstruct"
 )
@@ -161,15 +162,15 @@ func demoCommand() *cli.Command {
 		Name:            "demo",
 		OnUsageError:    usageError,
 		HideHelpCommand: true,
-		Usage:           "synthesise a demo sweep of the bracket and onboard it end to end",
-		Description: "Writes a turntable sweep of the demo part 'bracket' (an angle bracket from a machine shop's parts bin) " +
+		Usage:           "synthesise a demo sweep of a part and onboard it end to end",
+		Description: "Writes a turntable sweep of a demo part from a machine shop's parts bin (default: the valve body) " +
 			"into a new temporary folder, onboards it into the catalog (--catalog, $SCANFOLD_CATALOG or ./scanfold-catalog) " +
 			"and prints the verdict and where the HTML report is.",
 		Flags: append([]cli.Flag{
-			&cli.StringFlag{Name: "part", Value: "bracket", Usage: "demo part to scan"},
+			&cli.StringFlag{Name: "part", Value: "valve", Usage: "demo part to scan: " + strings.Join(parts.Names(), ", ")},
 			&cli.StringFlag{Name: "out", Usage: "folder to write the demo sweep to (default: a new temporary folder)", TakesFile: true},
 			&cli.StringFlag{Name: "rig", Value: string(reconstruct.RigTurntable), Usage: "turntable or handheld"},
-			&cli.IntFlag{Name: "frames", Value: 36, Usage: "frames of the demo sweep"},
+			&cli.IntFlag{Name: "frames", Value: 72, Usage: "frames of the demo sweep"},
 		}, onboardFlags()...),
 		Action: func(c *cli.Context) error {
 			if c.Args().Len() > 0 {
