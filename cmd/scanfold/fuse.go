@@ -35,6 +35,7 @@ func fuseCommand() *cli.Command {
 			&cli.BoolFlag{Name: "strict", Usage: "fail on any frame that cannot be used instead of skipping it"},
 			&cli.BoolFlag{Name: "refine", Usage: "refine every turntable frame by ICP against the model so far (for plates whose angle slips)"},
 			&cli.StringFlag{Name: "json", Usage: "also write the fusion report as JSON to this file", TakesFile: true},
+			&cli.StringFlag{Name: "poses", Usage: "also write the camera pose found for every frame (the poses-file format 'check --poses' reads; skipped frames get the identity)", TakesFile: true},
 		},
 		Action: func(c *cli.Context) error {
 			if c.Args().Len() != 1 {
@@ -60,6 +61,12 @@ func fuseCommand() *cli.Command {
 			out := c.String("out")
 			if err := mesh.SaveMesh(out, res.Mesh); err != nil {
 				return err
+			}
+			if p := c.String("poses"); p != "" {
+				tp := &reconstruct.TruthPoses{Rig: res.Report.Rig, CamToWorld: res.Report.CamToWorld, PartToWorld: mesh.Identity(), Axis: res.Report.Axis}
+				if err := reconstruct.WriteTruthPoses(p, tp); err != nil {
+					return err
+				}
 			}
 			if js := c.String("json"); js != "" {
 				if err := writeJSONFile(js, res.Report); err != nil {
