@@ -65,6 +65,14 @@ type Options struct {
 	// catalog holds no other part.
 	// DEFAULT: true
 	DemoConfusers bool
+	// Confusers, when not nil, are the parts the check compares the part
+	// with, instead of the catalog's other parts as they stand when the
+	// check starts (DemoConfusers is then unused). A batch fixes them
+	// once, so that a part's result does not depend on which other parts
+	// happened to be filed before it. An entry named like the part
+	// itself (letter case ignored) is left out.
+	// DEFAULT: nil
+	Confusers []validate.NamedModel
 	// Reference is a drawing model (PLY, STL or OBJ) to compare the scan
 	// with; "" for none. ReferenceUnit is the length of one of its units
 	// in metres.
@@ -243,7 +251,13 @@ func Onboard(ctx context.Context, sweepDir, name string, store *catalog.Store, o
 		return nil, err
 	}
 	in.Sweep = sweepInput(sw, &fused.Report, partToSweep)
-	if in.Confusers, err = confusers(store, name, opt.DemoConfusers); err != nil {
+	if opt.Confusers != nil {
+		for _, c := range opt.Confusers {
+			if !strings.EqualFold(c.Name, name) {
+				in.Confusers = append(in.Confusers, c)
+			}
+		}
+	} else if in.Confusers, err = confusers(store, name, opt.DemoConfusers); err != nil {
 		return nil, err
 	}
 	if opt.Reference != "" {
@@ -487,6 +501,14 @@ func sweepInput(sw *reconstruct.Sweep, rep *reconstruct.FuseReport, partToSweep 
 		in.CamToWorld = append(in.CamToWorld, rep.CamToWorld[i])
 	}
 	return in
+}
+
+// CatalogConfusers returns what Onboard checks part name against when
+// Options.Confusers is nil: the latest revision of every other part in
+// the catalog whose model can be read, sorted by name, or the demo parts
+// bin when the catalog holds none and demo is set.
+func CatalogConfusers(store *catalog.Store, name string, demo bool) ([]validate.NamedModel, error) {
+	return confusers(store, name, demo)
 }
 
 // confusers returns the latest revision of every other part in the

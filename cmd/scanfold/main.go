@@ -73,6 +73,7 @@ func newApp(stdout, stderr io.Writer) *cli.App {
 			catalogCommand(),
 			checkCommand(),
 			compareCommand(),
+			batchCommand(),
 		},
 	}
 }
