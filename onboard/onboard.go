@@ -274,6 +274,11 @@ func Onboard(ctx context.Context, sweepDir, name string, store *catalog.Store, o
 	}
 	co := opt.Check
 	co.Progress = progress
+	if co.Symmetry.Resolution == 0 {
+		// A fused surface carries noise of about its voxel size, which
+		// a symmetric copy of it does not share (DetectSymmetry).
+		co.Symmetry.Resolution = fused.Report.VoxelSize
+	}
 	checked, err := validate.Check(ctx, in, co)
 	if err != nil {
 		return nil, fmt.Errorf("onboard: %s: check: %w", name, err)

@@ -377,6 +377,8 @@ type ScorerFigures struct {
 	// recall of a cell that accepts only poses scoring that high (0
 	// without a calibration).
 	AcceptedRecall float64 `json:"accepted_recall"`
+	// ScannedAcceptedRecall is AcceptedRecall over the Scanned views.
+	ScannedAcceptedRecall float64 `json:"scanned_accepted_recall"`
 	// Calibration of the acceptance threshold on the scores of right
 	// and wrong hypotheses (nil for the vote ranking, or when a set was
 	// empty); Right and Wrong are those scores.
@@ -520,6 +522,14 @@ func Check(ctx context.Context, in CheckInput, opt CheckOptions) (*CheckResult, 
 	var err error
 	if res.Openings, err = FindOpenings(m, supportZ, 0); err != nil {
 		return nil, err
+	}
+	if in.Sweep != nil && len(in.Sweep.CamToWorld) > 0 {
+		worldToModel := in.Sweep.ModelToWorld.Inv()
+		cams := make([]r3.Vec, len(in.Sweep.CamToWorld))
+		for i, c := range in.Sweep.CamToWorld {
+			cams[i] = worldToModel.Apply(c.T)
+		}
+		res.Openings.MarkRecesses(m, cams)
 	}
 	plausible := res.Diameter >= opt.Rules.MinDiameter && res.Diameter <= opt.Rules.MaxDiameter
 	if !plausible {
@@ -1516,7 +1526,7 @@ func (pc *partCheck) figures(res *CheckResult) {
 			f.Right, f.Wrong = right[k], wrong[k]
 			if cal, err := Calibrate(right[k], wrong[k], pc.opt.Calibration); err == nil {
 				f.Calibration = cal
-				acc := 0
+				acc, sacc := 0, 0
 				for i := range res.Views {
 					v := &res.Views[i]
 					b := [2]int{v.BestBaseline, v.BestPoint}[k]
@@ -1525,9 +1535,15 @@ func (pc *partCheck) figures(res *CheckResult) {
 					}
 					if sc := [2]float64{v.Hypotheses[b].Baseline, v.Hypotheses[b].Point}[k]; sc >= cal.Threshold {
 						acc++
+						if v.Unscanned <= maxUnscanned {
+							sacc++
+						}
 					}
 				}
 				f.AcceptedRecall = float64(acc) / n
+				if sn > 0 {
+					f.ScannedAcceptedRecall = float64(sacc) / float64(sn)
+				}
 			}
 		}
 		return f

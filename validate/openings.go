@@ -42,6 +42,14 @@ type Opening struct {
 	// above cannot see either. The others are holes.
 	OnSupport bool `json:"on_support"`
 	Underside bool `json:"underside"`
+	// Recessed reports a hole inside a recess (a bore, a deep pocket)
+	// that no camera of the sweep could look into: from the patch's
+	// centroid, the line of sight to every camera is blocked by the
+	// part itself (MarkRecesses). The sweep could not have filled it,
+	// and a cell's camera from similar viewpoints sees as little; the
+	// check's views that do show the patch are counted apart (see
+	// ViewResult.Unscanned).
+	Recessed bool `json:"recessed"`
 	// Closed is false for a chain of boundary edges that did not return
 	// to its start (a non-manifold rim); its patch closes it with a
 	// straight edge.
@@ -66,6 +74,11 @@ type Openings struct {
 	HoleFraction      float64 `json:"hole_fraction"`
 	UndersideArea     float64 `json:"underside_area_m2"`
 	UndersideFraction float64 `json:"underside_fraction"`
+	// RecessArea sums the patches of the recessed holes (MarkRecesses),
+	// which HoleArea then leaves out; RecessFraction is its share of the
+	// closed surface.
+	RecessArea     float64 `json:"recess_area_m2"`
+	RecessFraction float64 `json:"recess_fraction"`
 	// SupportArea is the area of the openings on the support (the face
 	// the part stood on): the length of the sum of their patches'
 	// vector areas, so that the rim of a hole through the resting face
@@ -229,11 +242,123 @@ func FindOpenings(m *mesh.Mesh, supportZ, tol float64) (*Openings, error) {
 	}
 	out.SupportArea = r3.Norm(supportVec)
 	sort.SliceStable(out.List, func(i, j int) bool { return out.List[i].Area > out.List[j].Area })
-	if total := out.SurfaceArea + out.HoleArea + out.UndersideArea + out.SupportArea; total > 0 {
-		out.HoleFraction = out.HoleArea / total
-		out.UndersideFraction = out.UndersideArea / total
-	}
+	out.fractions()
 	return out, nil
+}
+
+// closedArea is the area of the surface with every opening closed.
+func (o *Openings) closedArea() float64 {
+	return o.SurfaceArea + o.HoleArea + o.RecessArea + o.UndersideArea + o.SupportArea
+}
+
+func (o *Openings) fractions() {
+	if total := o.closedArea(); total > 0 {
+		o.HoleFraction = o.HoleArea / total
+		o.UndersideFraction = o.UndersideArea / total
+		o.RecessFraction = o.RecessArea / total
+	}
+}
+
+// MarkRecesses marks the holes that no camera could look into
+// (Opening.Recessed) and moves their area from HoleArea to RecessArea.
+// m is the surface the openings were found on and cameras the centres
+// of the sweep's cameras in the same frame. A hole is recessed when,
+// from a point just off its patch's centroid (a hundredth of the
+// patch's equivalent diameter along its normal, at least 0.1 mm), the
+// segment to every camera in front of the patch crosses a triangle of
+// m (Möller & Trumbore 1997 ray–triangle test) — the centre of a bore
+// whose sweep looked in more steeply than the bore's walls allow — and
+// when no camera lies in front of it, the patch faces away from all.
+// An opening without a normal (its patch's normals cancel) is left a
+// hole. Cost: openings × cameras × triangles tests, bounded per segment
+// by a box test, well under a second for a fused part.
+func (o *Openings) MarkRecesses(m *mesh.Mesh, cameras []r3.Vec) {
+	if len(cameras) == 0 {
+		return
+	}
+	tris := newTriangleSet(m)
+	for i := range o.List {
+		op := &o.List[i]
+		if op.OnSupport || op.Underside || op.Recessed || r3.Norm(op.Normal) == 0 {
+			continue
+		}
+		off := math.Max(1e-4, 0.01*math.Sqrt(4*op.Area/math.Pi))
+		p := r3.Add(op.Centroid, r3.Scale(off, op.Normal))
+		seen := false
+		for _, c := range cameras {
+			if r3.Dot(r3.Sub(c, p), op.Normal) <= 0 {
+				continue
+			}
+			if !tris.blocked(p, c) {
+				seen = true
+				break
+			}
+		}
+		if !seen {
+			op.Recessed = true
+			o.HoleArea -= op.Area
+			o.RecessArea += op.Area
+		}
+	}
+	if o.HoleArea < 0 {
+		o.HoleArea = 0
+	}
+	o.fractions()
+}
+
+// triangleSet holds a mesh's triangles with their bounding boxes for
+// segment tests.
+type triangleSet struct {
+	a, e1, e2 []r3.Vec
+	lo, hi    []r3.Vec
+}
+
+func newTriangleSet(m *mesh.Mesh) *triangleSet {
+	t := &triangleSet{}
+	for _, f := range m.Faces {
+		a, b, c := m.Vertices[f[0]], m.Vertices[f[1]], m.Vertices[f[2]]
+		t.a = append(t.a, a)
+		t.e1 = append(t.e1, r3.Sub(b, a))
+		t.e2 = append(t.e2, r3.Sub(c, a))
+		t.lo = append(t.lo, r3.Vec{X: math.Min(a.X, math.Min(b.X, c.X)), Y: math.Min(a.Y, math.Min(b.Y, c.Y)), Z: math.Min(a.Z, math.Min(b.Z, c.Z))})
+		t.hi = append(t.hi, r3.Vec{X: math.Max(a.X, math.Max(b.X, c.X)), Y: math.Max(a.Y, math.Max(b.Y, c.Y)), Z: math.Max(a.Z, math.Max(b.Z, c.Z))})
+	}
+	return t
+}
+
+// blocked reports whether the segment from p to q crosses a triangle
+// (at a parameter strictly inside (0, 1)): the Möller–Trumbore test,
+// which solves p + s·(q − p) = a + u·e1 + v·e2 by Cramer's rule.
+func (t *triangleSet) blocked(p, q r3.Vec) bool {
+	d := r3.Sub(q, p)
+	slo := r3.Vec{X: math.Min(p.X, q.X), Y: math.Min(p.Y, q.Y), Z: math.Min(p.Z, q.Z)}
+	shi := r3.Vec{X: math.Max(p.X, q.X), Y: math.Max(p.Y, q.Y), Z: math.Max(p.Z, q.Z)}
+	for i := range t.a {
+		lo, hi := t.lo[i], t.hi[i]
+		if hi.X < slo.X || lo.X > shi.X || hi.Y < slo.Y || lo.Y > shi.Y || hi.Z < slo.Z || lo.Z > shi.Z {
+			continue
+		}
+		h := r3.Cross(d, t.e2[i])
+		det := r3.Dot(t.e1[i], h)
+		if math.Abs(det) < 1e-18 {
+			continue // the segment runs parallel to the triangle
+		}
+		inv := 1 / det
+		sv := r3.Sub(p, t.a[i])
+		u := inv * r3.Dot(sv, h)
+		if u < 0 || u > 1 {
+			continue
+		}
+		qv := r3.Cross(sv, t.e1[i])
+		v := inv * r3.Dot(d, qv)
+		if v < 0 || u+v > 1 {
+			continue
+		}
+		if s := inv * r3.Dot(t.e2[i], qv); s > 1e-9 && s < 1-1e-9 {
+			return true
+		}
+	}
+	return false
 }
 
 // measureOpening measures the fan patch of one boundary loop (the loop

@@ -234,8 +234,9 @@ type symSampler struct {
 // agree, 400 directions over the half sphere are screened for 2- to
 // 5-fold turns. On each candidate axis, rotations by three mutually
 // incommensurate angles (1, √2 and π/√5 rad) passing means a continuous
-// symmetry; otherwise the largest n ≤ MaxFold whose rotation by 360°/n
-// passes is the fold. A candidate that nearly passes (within three
+// symmetry; otherwise the fold is the largest n ≤ MaxFold whose
+// rotations by k·360°/n all pass (k = 1 … n/2; the others are their
+// inverses). A candidate that nearly passes (within three
 // times the tolerances) is refined by point-to-plane ICP of the first
 // sampling onto the second (mesh.ICPPointToPlane) and tested again, so
 // a slightly tilted principal axis (a noisy scan) still counts.
@@ -600,10 +601,29 @@ func (s *symSampler) testAxis(c, dir r3.Vec, minN, maxN int, refine bool) (Symme
 				ax.Axis = axis
 			}
 			ax.Fold, ax.Mean, ax.P95 = n, mean, p95
-			return ax, true
+			if s.wholeGroup(ax) {
+				return ax, true
+			}
 		}
 	}
 	return ax, false
+}
+
+// wholeGroup reports whether every rotation of the axis's n-fold group
+// passes, not only the one by 360°/n: on a surface the fusion rounded
+// off, a hexagon's turn by 360°/7 can come within the tolerance (8.6°
+// from 60°), but its double, 17° from 120°, does not. The worst passing
+// figures replace the axis's.
+func (s *symSampler) wholeGroup(ax SymmetryAxis) bool {
+	n := ax.Fold
+	for k := 2; k <= n/2; k++ {
+		_, mean, p95, ok := s.passes(ax.Rotation(2*math.Pi*float64(k)/float64(n)), false)
+		if !ok {
+			return false
+		}
+		ax.Mean, ax.P95 = math.Max(ax.Mean, mean), math.Max(ax.P95, p95)
+	}
+	return true
 }
 
 // screen searches a degenerate eigenspace for symmetry axes: directions

@@ -45,7 +45,9 @@ type VerdictRules struct {
 	// percentile of right scores less the 95th of wrong ones) is
 	// reported beside it; on cluttered, occluded views it is often
 	// negative even for good models (right poses of half-hidden parts
-	// score low), so it does not decide on its own.
+	// score low), so it does not decide on its own. It is judged on the
+	// same views as the recall (those showing the scanned surface, when
+	// there are MinScannedViews of them).
 	// DEFAULT: 0.7
 	MinAcceptedRecall float64
 	// MinAUC: a point-scorer ROC area below this means the score ranks
@@ -204,6 +206,7 @@ const (
 	CodeMissingUnderside = "missing-underside"
 	CodeRestingFace      = "resting-face-unseen"
 	CodeUndersides       = "undersides-unseen"
+	CodeRecesses         = "recesses-unseen"
 	CodeLowCoverage      = "low-coverage"
 	CodeScale            = "scale-off"
 	CodeShape            = "shape-deviation"
@@ -247,10 +250,10 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 		// scanned. Views in which it rests showing a side the sweep never
 		// saw (the face it stood on) are judged apart: they ask for a
 		// second sweep with the part turned over, not a better one.
-		recall, views := p.Recall, len(res.Views)
+		recall, views, accepted := p.Recall, len(res.Views), p.AcceptedRecall
 		exposed := views - p.Scanned
 		if exposed > 0 && p.Scanned >= r.MinScannedViews {
-			recall, views = p.ScannedRecall, p.Scanned
+			recall, views, accepted = p.ScannedRecall, p.Scanned, p.ScannedAcceptedRecall
 		}
 		switch {
 		case recall < r.RescanRecall:
@@ -267,9 +270,9 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 		if c := p.Calibration; c == nil {
 			add(VerdictReview, CodeNoCalibration, "No acceptance threshold could be calibrated: the views gave no right or no wrong hypotheses (%d right, %d wrong).", len(p.Right), len(p.Wrong))
 		} else {
-			if p.AcceptedRecall < r.MinAcceptedRecall {
-				add(VerdictReview, CodeThinMargin, "At the threshold %.3f, which accepts %s of wrong poses, the cell would accept the right pose in only %s of views (%s needed): right and wrong scores lie close (margin %.3f: the 5th percentile of right scores less the 95th of wrong ones). Decide which misses the cell can afford, or scan again for a cleaner model.",
-					c.Threshold, pct(c.FalseAcceptRate), pct(p.AcceptedRecall), pct(r.MinAcceptedRecall), c.Gap)
+			if accepted < r.MinAcceptedRecall {
+				add(VerdictReview, CodeThinMargin, "At the threshold %.3f, which accepts %s of wrong poses, the cell would accept the right pose in only %s of the %d views (%s needed): right and wrong scores lie close (margin %.3f: the 5th percentile of right scores less the 95th of wrong ones). Decide which misses the cell can afford, or scan again for a cleaner model.",
+					c.Threshold, pct(c.FalseAcceptRate), pct(accepted), views, pct(r.MinAcceptedRecall), c.Gap)
 			}
 			if c.AUC < r.MinAUC {
 				add(VerdictReview, CodeLowAUC, "The point-difference score ranks a wrong hypothesis above a right one in %s of pairs (ROC area %.3f, %.2f needed): its threshold cannot separate them well.",
@@ -286,7 +289,7 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 		}
 		largest := ""
 		for _, op := range o.List {
-			if !op.OnSupport && !op.Underside {
+			if !op.OnSupport && !op.Underside && !op.Recessed {
 				largest = fmt.Sprintf("; the largest, %s, is at %s facing %s", fmtArea(op.Area), vec3mm(op.Centroid), facing(op.Normal))
 				break
 			}
@@ -299,13 +302,17 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 			add(VerdictReview, CodeHoles, "The model has holes covering %s of its surface (%s)%s. Look at them in the openings picture; rescan if they are on a face the cell sees.",
 				pct(o.HoleFraction), fmtArea(o.HoleArea), largest)
 		}
+		if o.RecessArea > 0 {
+			add(VerdictReady, CodeRecesses, "Openings inside recesses (%s, %s of the closed surface) were not scanned: no camera of the sweep could see into them past the part's own walls, and a cell's camera from similar viewpoints sees as little. The views that show them are counted apart.",
+				fmtArea(o.RecessArea), pct(o.RecessFraction))
+		}
 		if o.UndersideFraction > r.ReviewUndersideFraction {
 			add(VerdictReview, CodeUndersides, "Undersides facing down (%s, %s of the closed surface) were not scanned: the cell sees them only when the part rests on another face. Scan the part turned over if it can rest so.",
 				fmtArea(o.UndersideArea), pct(o.UndersideFraction))
 		}
 		if o.SupportArea > 0 {
 			add(VerdictReady, CodeRestingFace, "The face the part stood on during the sweep (%s, %s of the closed surface) was not scanned, as no single sweep can. The cell sees it only when the part rests on another face; scan the part turned over if it does.",
-				fmtArea(o.SupportArea), pct(o.SupportArea/(o.SurfaceArea+o.HoleArea+o.UndersideArea+o.SupportArea)))
+				fmtArea(o.SupportArea), pct(o.SupportArea/o.closedArea()))
 		}
 	}
 	if c := res.Coverage; c != nil && c.TotalArea > 0 {

@@ -29,7 +29,7 @@ func checkCommand() *cli.Command {
 		Usage:           "prove whether a part's model lets a PPF-based cell find it, and judge it ready, review or rescan",
 		UsageText: "scanfold check MODEL --tables PART.ppf [--cloud CLOUD.ply] [--views 60] [--report DIR] [--seed S]\n" +
 			"   [--reference CAD] [--sweep DIR [--poses POSES.json] [--model-frame world|part] [--frames 12]]\n" +
-			"   [--confusers demo|none|A.ply,B.stl] [--support-z 0mm]",
+			"   [--confusers demo|none|A.ply,B.stl] [--support-z 0mm] [--resolution 1.5mm]",
 		Description: "Renders the model in its resting poses on a table among clutter, with occluders and " +
 			"structured-light noise, votes for it with its PPF tables in every view, and scores the hypotheses " +
 			"with the inlier-count baseline and the point-difference scorer (depth, normal and HSV colour). " +
@@ -54,6 +54,7 @@ func checkCommand() *cli.Command {
 			&cli.StringFlag{Name: "model-frame", Value: "world", Usage: "frame of the MODEL file: world (the sweep's, as 'fuse' writes it) or part (placed in the sweep by the --poses file's part_to_world)"},
 			&cli.IntFlag{Name: "frames", Value: d.MaxRealFrames, Usage: "sweep frames to score the model in (evenly chosen)"},
 			&cli.StringFlag{Name: "confusers", Value: "demo", Usage: "other parts to test for confusion: demo (the demo bin), none, or mesh files separated by commas"},
+			&cli.GenericFlag{Name: "resolution", Value: &optionalLength{}, Usage: "resolution of the model's surface, such as the voxel size it was fused at (e.g. 1.5mm): a scanned surface's own noise, allowed for when its symmetries are tested (default: none, a model from a drawing)"},
 			&cli.GenericFlag{Name: "support-z", Value: &optionalLength{}, Usage: "height along the model's z axis of the support the part stood on during its sweep (a model in its part frame: 0mm), to tell its resting face from holes"},
 			&cli.IntFlag{Name: "workers", Usage: "views processed at once (0: one per CPU); the result does not depend on it"},
 		},
@@ -132,6 +133,12 @@ func runCheck(c *cli.Context, modelPath string) error {
 	opt.Seed = c.Uint64("seed")
 	opt.Workers = c.Int("workers")
 	opt.MaxRealFrames = c.Int("frames")
+	if r := c.Generic("resolution").(*optionalLength); r.set {
+		if !(r.Metres >= 0) || r.Metres > 0.05 {
+			return fmt.Errorf("--resolution %s: want a length from 0 to 50mm", units.FormatLength(r.Metres))
+		}
+		opt.Symmetry.Resolution = r.Metres
+	}
 	if opt.MaxRealFrames < 0 {
 		return fmt.Errorf("--frames %d: want ≥ 0", opt.MaxRealFrames)
 	}
