@@ -152,6 +152,7 @@ type settings struct {
 	Seed         uint64  `json:"check_seed"`
 	RealFrames   int     `json:"real_frames"`
 	Demo         bool    `json:"demo_confusers"`
+	Rests        string  `json:"rests,omitempty"` // "as-scanned"; empty for any pose
 	Reference    string  `json:"reference,omitempty"`
 	RefUnit      float64 `json:"reference_unit_m,omitempty"`
 	Tool         string  `json:"tool_version"`
@@ -346,8 +347,15 @@ func (opt Options) settings() settings {
 		DistanceStep: opt.Tables.Params.DistanceStep, AngleBins: opt.Tables.Params.AngleBins,
 		Views: opt.Check.Views, Seed: opt.Check.Seed, RealFrames: opt.RealFrames, Demo: opt.DemoConfusers,
 		Reference: opt.Reference, RefUnit: opt.ReferenceUnit, Tool: opt.ToolVersion,
+		Rests: map[bool]string{true: RestsAsScanned}[opt.Check.RestsAsScanned],
 	}
 }
+
+// The ways a cell presents a part, as flags and settings name them.
+const (
+	RestsAny       = "any"
+	RestsAsScanned = "as-scanned"
+)
 
 // filing assembles the catalog filing: the blobs (mesh and cloud as
 // binary PLY in the part frame, the tables, the report files) and the

@@ -74,8 +74,15 @@ type FuseOptions struct {
 	// DEFAULT: 0.015
 	ROIMargin float64
 	// MinWeight: voxels with less accumulated weight are treated as
-	// unobserved when the mesh is extracted.
-	// DEFAULT: 1
+	// unobserved when the mesh is extracted. A weight of 1 is one
+	// face-on measurement at 0.5 m (MeasurementWeights); the inside of
+	// a bore, seen in a few frames at 50–70° from its rays, gathers
+	// 0.2–0.5 a frame. Measured on the 72-frame demo valve sweep at
+	// 1.5 mm voxels: 1 leaves its inlet bore open (holes 4.1 % of the
+	// surface), 0.5 closes it to the part that faces down (holes
+	// 0.85 %) with the same accuracy (mean error 0.955 → 0.947 mm, the
+	// bracket 0.431 mm either way).
+	// DEFAULT: 0.5
 	MinWeight float32
 	// CropHeight removes the support surface: the mesh is cut along the
 	// plane this far above the support (metres). 0 means 0.75 voxel.
@@ -122,7 +129,7 @@ func DefaultFuseOptions() FuseOptions {
 		MaxRefineShift:       0.0015,
 		MaxRefineTurn:        0.5 * math.Pi / 180,
 		ROIMargin:            0.015,
-		MinWeight:            1,
+		MinWeight:            0.5,
 		MinComponentFraction: 0.02,
 		KeepLargest:          true,
 		Smooth:               10,

@@ -188,6 +188,15 @@ type CheckOptions struct {
 	// MaxRealFrames bounds the real frames scored (evenly chosen).
 	// DEFAULT: 12
 	MaxRealFrames int
+	// RestsAsScanned says the cell presents the part resting as it
+	// stood in its sweep (in a tray, a fixture, on a conveyor), not in
+	// any resting pose (a bin): the views then show it only in the
+	// resting pose nearest to standing on the support (CheckInput.SupportZ
+	// must be known), and surface the sweep could not see from above —
+	// the face it stood on, undersides — is no finding. False: the part
+	// may rest in any of its stable poses.
+	// DEFAULT: false
+	RestsAsScanned bool
 	// Rules decide the verdict.
 	// DEFAULT: DefaultVerdictRules()
 	Rules VerdictRules
@@ -398,6 +407,11 @@ type CheckResult struct {
 	GeometrySymmetric bool
 	Stable            *StableResult
 	Symmetry          *SymmetryReport
+	// RestsAsScanned reports that the views showed the part only in
+	// its resting pose of the sweep (CheckOptions.RestsAsScanned), the
+	// pose Stable.Poses[ScannedRest]; ScannedRest is −1 otherwise.
+	RestsAsScanned bool
+	ScannedRest    int
 	// Views are the synthetic check views.
 	Views []ViewResult
 	// Baseline, Point and Votes are the three rankings of the vote's
@@ -542,6 +556,26 @@ func Check(ctx context.Context, in CheckInput, opt CheckOptions) (*CheckResult, 
 	if res.Stable, err = StablePoses(m, opt.Stable); err != nil {
 		return nil, fmt.Errorf("validate: check resting poses: %w", err)
 	}
+	res.ScannedRest = -1
+	if opt.RestsAsScanned {
+		if !in.SupportKnown {
+			return nil, fmt.Errorf("validate: check: the part rests as scanned, but where it stood (CheckInput.SupportZ) is not known")
+		}
+		// The resting pose whose face points most nearly down the part
+		// frame's z axis: the way the part stood on its support. Within
+		// 15°, as a fused resting face is cut a voxel above the support
+		// and its outline is a little ragged.
+		best, bestDot := -1, math.Cos(15*math.Pi/180)
+		for i, p := range res.Stable.Poses {
+			if d := -p.Normal.Z; d >= bestDot {
+				best, bestDot = i, d
+			}
+		}
+		if best < 0 {
+			return nil, fmt.Errorf("validate: check: the part rests as scanned, but none of its %d resting poses stands it on the face it stood on in its sweep (within 15°)", len(res.Stable.Poses))
+		}
+		res.RestsAsScanned, res.ScannedRest = true, best
+	}
 	symOpt := opt.Symmetry
 	symOpt.Seed = opt.Seed
 	if res.Symmetry, err = DetectSymmetry(m, symOpt); err != nil {
@@ -594,7 +628,13 @@ func Check(ctx context.Context, in CheckInput, opt CheckOptions) (*CheckResult, 
 		sopt := opt.Scene
 		sopt.Seed = opt.Seed
 		res.Views = make([]ViewResult, opt.Views)
-		if err := pc.runViews(ctx, res.Stable.Poses, clutter, sopt, res.Views, workers, progress); err != nil {
+		poses := res.Stable.Poses
+		if res.ScannedRest >= 0 {
+			p := poses[res.ScannedRest]
+			p.Probability = 1
+			poses = []StablePose{p}
+		}
+		if err := pc.runViews(ctx, poses, clutter, sopt, res.Views, workers, progress); err != nil {
 			return nil, err
 		}
 		lap("views: render, vote, score")
@@ -665,6 +705,7 @@ func finishCheck(ctx context.Context, res *CheckResult, in CheckInput, opt Check
 	res.Settings = append(res.Settings,
 		Setting{"views", fmt.Sprint(opt.Views)},
 		Setting{"seed", fmt.Sprint(opt.Seed)},
+		Setting{"resting poses", map[bool]string{true: "as it stood in the sweep (tray, fixture, conveyor)", false: "any stable pose (a bin)"}[opt.RestsAsScanned]},
 		Setting{"occlusion", fmt.Sprintf("%.0f–%.0f %%", 100*opt.Scene.MinOcclusion, 100*opt.Scene.MaxOcclusion)},
 		Setting{"clutter objects", fmt.Sprintf("%d–%d", opt.Scene.MinClutter, opt.Scene.MaxClutter)},
 		Setting{"camera distance", fmt.Sprintf("%.2f–%.2f m", opt.Scene.MinDistance, opt.Scene.MaxDistance)},

@@ -207,6 +207,7 @@ const (
 	CodeRestingFace      = "resting-face-unseen"
 	CodeUndersides       = "undersides-unseen"
 	CodeRecesses         = "recesses-unseen"
+	CodeRestsAsScanned   = "rests-as-scanned"
 	CodeLowCoverage      = "low-coverage"
 	CodeScale            = "scale-off"
 	CodeShape            = "shape-deviation"
@@ -255,6 +256,9 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 		if exposed > 0 && p.Scanned >= r.MinScannedViews {
 			recall, views, accepted = p.ScannedRecall, p.Scanned, p.ScannedAcceptedRecall
 		}
+		if res.RestsAsScanned {
+			add(VerdictReady, CodeRestsAsScanned, "The views show the part only resting as it stood in the sweep, as the cell presents it (a tray, a fixture, a conveyor). A part that can land in another pose, as in a bin, needs the check without that setting.")
+		}
 		switch {
 		case recall < r.RescanRecall:
 			add(VerdictRescan, CodeLowRecall, "The point-difference scorer found the part in %s of %d synthetic views that show it by its scanned surface (%s needed): the cell would miss it in more than 1 view in 5. The PPF votes put a right pose among their hypotheses in %s of all views. Scan again with more views of every side.",
@@ -263,7 +267,7 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 			add(VerdictReview, CodeLowRecall, "The point-difference scorer found the part in %s of %d synthetic views that show it by its scanned surface, short of the %s target; look at the wrong views on the contact sheet.",
 				pct(recall), views, pct(r.ReviewRecall))
 		}
-		if exposed > 0 && p.Scanned >= r.MinScannedViews && p.ExposedRecall < r.ReviewRecall {
+		if exposed > 0 && p.Scanned >= r.MinScannedViews && p.ExposedRecall < r.ReviewRecall && !res.RestsAsScanned {
 			add(VerdictReview, CodeUnscannedSide, "In %d of %d views the part rests showing surface the sweep never saw (more than %s of its pixels); there the cell found it in only %s. If the part can rest that way in the cell, scan it again turned over and file the merged model.",
 				exposed, len(res.Views), pct(maxUnscanned), pct(p.ExposedRecall))
 		}
@@ -306,7 +310,12 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 			add(VerdictReady, CodeRecesses, "Openings inside recesses (%s, %s of the closed surface) were not scanned: no camera of the sweep could see into them past the part's own walls, and a cell's camera from similar viewpoints sees as little. The views that show them are counted apart.",
 				fmtArea(o.RecessArea), pct(o.RecessFraction))
 		}
-		if o.UndersideFraction > r.ReviewUndersideFraction {
+		if res.RestsAsScanned {
+			if o.UndersideArea > 0 {
+				add(VerdictReady, CodeUndersides, "Undersides facing down (%s, %s of the closed surface) were not scanned; the cell presents the part resting as it stood in the sweep, so it does not see them either.",
+					fmtArea(o.UndersideArea), pct(o.UndersideFraction))
+			}
+		} else if o.UndersideFraction > r.ReviewUndersideFraction {
 			add(VerdictReview, CodeUndersides, "Undersides facing down (%s, %s of the closed surface) were not scanned: the cell sees them only when the part rests on another face. Scan the part turned over if it can rest so.",
 				fmtArea(o.UndersideArea), pct(o.UndersideFraction))
 		}

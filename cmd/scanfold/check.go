@@ -16,6 +16,7 @@ import (
 	"github.com/scanfold/scanfold/features"
 	"github.com/scanfold/scanfold/internal/units"
 	"github.com/scanfold/scanfold/mesh"
+	"github.com/scanfold/scanfold/onboard"
 	"github.com/scanfold/scanfold/reconstruct"
 	"github.com/scanfold/scanfold/validate"
 )
@@ -54,6 +55,7 @@ func checkCommand() *cli.Command {
 			&cli.StringFlag{Name: "model-frame", Value: "world", Usage: "frame of the MODEL file: world (the sweep's, as 'fuse' writes it) or part (placed in the sweep by the --poses file's part_to_world)"},
 			&cli.IntFlag{Name: "frames", Value: d.MaxRealFrames, Usage: "sweep frames to score the model in (evenly chosen)"},
 			&cli.StringFlag{Name: "confusers", Value: "demo", Usage: "other parts to test for confusion: demo (the demo bin), none, or mesh files separated by commas"},
+			restsFlag(),
 			&cli.GenericFlag{Name: "resolution", Value: &optionalLength{}, Usage: "resolution of the model's surface, such as the voxel size it was fused at (e.g. 1.5mm): a scanned surface's own noise, allowed for when its symmetries are tested (default: none, a model from a drawing)"},
 			&cli.GenericFlag{Name: "support-z", Value: &optionalLength{}, Usage: "height along the model's z axis of the support the part stood on during its sweep (a model in its part frame: 0mm), to tell its resting face from holes"},
 			&cli.IntFlag{Name: "workers", Usage: "views processed at once (0: one per CPU); the result does not depend on it"},
@@ -133,6 +135,12 @@ func runCheck(c *cli.Context, modelPath string) error {
 	opt.Seed = c.Uint64("seed")
 	opt.Workers = c.Int("workers")
 	opt.MaxRealFrames = c.Int("frames")
+	if c.String("rests") == onboard.RestsAsScanned {
+		if !in.SupportKnown {
+			return fmt.Errorf("--rests %s needs --support-z: where the part stood in its sweep", onboard.RestsAsScanned)
+		}
+		opt.RestsAsScanned = true
+	}
 	if r := c.Generic("resolution").(*optionalLength); r.set {
 		if !(r.Metres >= 0) || r.Metres > 0.05 {
 			return fmt.Errorf("--resolution %s: want a length from 0 to 50mm", units.FormatLength(r.Metres))

@@ -28,6 +28,7 @@ func onboardFlags() []cli.Flag {
 		&cli.IntFlag{Name: "real-frames", Value: d.RealFrames, Usage: "frames of the sweep the model is also scored against"},
 		&cli.BoolFlag{Name: "strict", Usage: "fail on any frame that cannot be used instead of skipping it"},
 		&cli.BoolFlag{Name: "refine", Usage: "refine every turntable frame by ICP against the model so far"},
+		restsFlag(),
 		&cli.BoolFlag{Name: "demo-confusers", Value: d.DemoConfusers, Usage: "when the catalog holds no other part, check against the demo parts bin (--demo-confusers=false: against nothing)"},
 	}
 }
@@ -42,8 +43,21 @@ func onboardOptions(c *cli.Context) onboard.Options {
 	opt.Check.Seed = c.Uint64("seed")
 	opt.RealFrames = c.Int("real-frames")
 	opt.DemoConfusers = c.Bool("demo-confusers")
+	opt.Check.RestsAsScanned = c.String("rests") == onboard.RestsAsScanned
 	opt.ToolVersion = Version
 	return opt
+}
+
+// restsFlag is --rests: how the cell presents the part.
+func restsFlag() cli.Flag {
+	return &cli.StringFlag{Name: "rests", Value: onboard.RestsAny,
+		Usage: "how the part rests in the cell: any (any stable pose, as in a bin) or as-scanned (as it stood in the sweep: a tray, a fixture, a conveyor); the check's views and findings follow",
+		Action: func(_ *cli.Context, v string) error {
+			if v != onboard.RestsAny && v != onboard.RestsAsScanned {
+				return fmt.Errorf("--rests %q: want %s or %s", v, onboard.RestsAny, onboard.RestsAsScanned)
+			}
+			return nil
+		}}
 }
 
 func onboardCommand() *cli.Command {
