@@ -637,6 +637,11 @@ func Check(ctx context.Context, in CheckInput, opt CheckOptions) (*CheckResult, 
 		if err := pc.runViews(ctx, poses, clutter, sopt, res.Views, workers, progress); err != nil {
 			return nil, err
 		}
+		if res.ScannedRest >= 0 {
+			for i := range res.Views {
+				res.Views[i].StablePose = res.ScannedRest
+			}
+		}
 		lap("views: render, vote, score")
 
 		// 3. Weights, recall, thresholds.

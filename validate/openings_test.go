@@ -1,8 +1,10 @@
 package validate
 
 import (
+	"context"
 	"math"
 	"os"
+	"strings"
 	"testing"
 
 	"gonum.org/v1/gonum/spatial/r3"
@@ -138,5 +140,41 @@ func TestSymmetryFusedNut(t *testing.T) {
 	opt.Resolution = 0
 	if r, err = DetectSymmetry(m, opt); err != nil || len(r.Geometry) != 0 {
 		t.Errorf("fused nut without its resolution: %+v, %v", r.Geometry, err)
+	}
+}
+
+// TestCheckRestsAsScanned: the bracket with the face it stood on cut
+// away, checked for a cell that presents it as it stood: every view
+// shows it in the resting pose whose face points down the part frame's
+// z axis, the finding says so, and neither the views of other resting
+// poses nor unseen undersides argue for review. Without knowing where
+// it stood, the option is refused.
+func TestCheckRestsAsScanned(t *testing.T) {
+	if testing.Short() {
+		t.Skip("renders views")
+	}
+	cp := demoCheckPart(t, "bracket")
+	m := cutBelow(cp.mesh, 0.0005)
+	opt := DefaultCheckOptions()
+	opt.Views = 6
+	opt.RestsAsScanned = true
+	in := CheckInput{Name: "bracket", Model: m, Tables: tablesFor(t, m)}
+	if _, err := Check(context.Background(), in, opt); err == nil || !strings.Contains(err.Error(), "SupportZ") {
+		t.Errorf("rests as scanned without the support: err = %v", err)
+	}
+	in.SupportKnown = true
+	res := runCheck(t, in, opt)
+	if !res.RestsAsScanned || res.ScannedRest < 0 || res.Stable.Poses[res.ScannedRest].Normal.Z > -math.Cos(15*math.Pi/180) {
+		t.Fatalf("scanned rest %d of %+v", res.ScannedRest, res.Stable.Poses)
+	}
+	for _, v := range res.Views {
+		if v.StablePose != res.ScannedRest {
+			t.Errorf("view %d rests in pose %d, want %d", v.Index, v.StablePose, res.ScannedRest)
+		}
+	}
+	expectReason(t, "rests as scanned", res, CodeRestsAsScanned, VerdictReady)
+	expectNoReason(t, "rests as scanned", res, CodeUnscannedSide)
+	if r, ok := reasonFor(res, CodeUndersides); ok && r.Verdict != VerdictReady {
+		t.Errorf("undersides: %s", r.Message)
 	}
 }

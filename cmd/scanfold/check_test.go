@@ -101,6 +101,9 @@ func TestCheckCommandErrors(t *testing.T) {
 		{[]string{"check", filepath.Join(dir, "missing.ply"), "--tables", tablePath}, "missing.ply"},
 		{[]string{"check", meshPath, "--tables", tablePath, "--views", "1"}, "views"},
 		{[]string{"check", meshPath, "--tables", tablePath, "--model-frame", "up", "--sweep", dir}, "sweep"},
+		{[]string{"check", meshPath, "--tables", tablePath, "--rests", "sideways"}, `--rests "sideways"`},
+		{[]string{"check", meshPath, "--tables", tablePath, "--rests", "as-scanned"}, "--support-z"},
+		{[]string{"check", meshPath, "--tables", tablePath, "--resolution", "9cm"}, "--resolution"},
 		{[]string{"compare", meshPath}, "reference"},
 		{[]string{"compare", meshPath, "--reference", meshPath, "--align", "sideways"}, "sideways"},
 	} {
