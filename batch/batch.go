@@ -588,6 +588,12 @@ func (r *runner) onboardPart(ctx context.Context, i int) (pr PartResult) {
 	opt.SkipFiled = true
 	opt.Confusers = r.confusers
 	opt.Reference, opt.ReferenceUnit = part.Reference, part.ReferenceUnit
+	switch part.Rests {
+	case onboard.RestsAny:
+		opt.Check.RestsAsScanned = false
+	case onboard.RestsAsScanned:
+		opt.Check.RestsAsScanned = true
+	}
 	if opt.ReferenceUnit == 0 {
 		opt.ReferenceUnit = 1
 	}

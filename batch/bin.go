@@ -13,6 +13,7 @@ import (
 
 	"github.com/scanfold/scanfold/catalog"
 	"github.com/scanfold/scanfold/internal/units"
+	"github.com/scanfold/scanfold/onboard"
 )
 
 // BinFile is the name of the optional list of parts in a bin folder.
@@ -40,6 +41,10 @@ type Part struct {
 	// not given).
 	Reference     string
 	ReferenceUnit float64
+	// Rests is how the cell presents the part ("any" or "as-scanned",
+	// see onboard.RestsAny); "" takes the run's setting
+	// (Options.Onboard.Check.RestsAsScanned).
+	Rests string
 }
 
 // binWire is bin.json as written.
@@ -54,6 +59,7 @@ type partWire struct {
 	Sweep         string `json:"sweep"`
 	Reference     string `json:"reference"`
 	ReferenceUnit string `json:"reference_unit"`
+	Rests         string `json:"rests"`
 }
 
 // BinFormat is the value of bin.json's optional "format" field, and
@@ -191,14 +197,18 @@ func inBin(dir, p string) string {
 //	  "format": "scanfold.bin", "version": 1,       (both optional)
 //	  "parts": [
 //	    {"name": "bracket", "sweep": "sweeps/bracket"},
-//	    {"name": "valve", "sweep": "/data/valve", "reference": "cad/valve.stl", "reference_unit": "1mm"}
+//	    {"name": "valve", "sweep": "/data/valve", "reference": "cad/valve.stl", "reference_unit": "1mm"},
+//	    {"name": "nut", "sweep": "sweeps/nut", "rests": "any"}
 //	  ]
 //	}
 //
 // name (a valid catalog part name, unique regardless of letter case)
 // and sweep (a folder, relative to the bin folder or absolute) are
 // required; reference is a drawing model and reference_unit the length
-// of one of its units ("1mm", "0.001", "1m"; default 1 m). Unknown
+// of one of its units ("1mm", "0.001", "1m"; default 1 m); rests is
+// how the cell presents the part, "any" (any stable pose, as in a bin)
+// or "as-scanned" (as it stood in its sweep: a tray, a fixture), and
+// overrides the run's --rests for that part. Unknown
 // fields, trailing data, an empty list and more than MaxParts parts are
 // refused. Errors are *BinError naming the line or the part and field.
 func ParseBin(data []byte) ([]Part, error) {
@@ -256,7 +266,10 @@ func ParseBin(data []byte) ([]Part, error) {
 			}
 			unit = u
 		}
-		parts[i] = Part{Name: pw.Name, Sweep: pw.Sweep, Reference: pw.Reference, ReferenceUnit: unit}
+		if pw.Rests != "" && pw.Rests != onboard.RestsAny && pw.Rests != onboard.RestsAsScanned {
+			return nil, bad(i, "rests", fmt.Sprintf("%q: want %q or %q", clip(pw.Rests), onboard.RestsAny, onboard.RestsAsScanned))
+		}
+		parts[i] = Part{Name: pw.Name, Sweep: pw.Sweep, Reference: pw.Reference, ReferenceUnit: unit, Rests: pw.Rests}
 	}
 	return parts, nil
 }

@@ -34,7 +34,7 @@ func synthSweep(t *testing.T, dir, part string, frames int, seed uint64, elevati
 // TestBinOfFive onboards, with the default settings, a bin of five
 // sweeps as the README's batch section describes: three good 72-frame
 // turntable sweeps (bushing, valve, labelbox), a deliberately bad scan
-// (the valve seen in 12 frames from 80° above its plate, which never
+// (the valve seen in 6 frames from 75° above its plate, which hardly
 // sees its sides) and a corrupted sweep (a copy of the bushing's whose
 // manifest is cut short). The bin ends with three ready, the bad scan
 // judged review or rescan with a reason that points at what the sweep
@@ -52,7 +52,7 @@ func TestBinOfFive(t *testing.T) {
 	synthSweep(t, filepath.Join(bin, "bushing"), "bushing", 72, 11, 0)
 	synthSweep(t, filepath.Join(bin, "valve"), "valve", 72, 11, 0)
 	synthSweep(t, filepath.Join(bin, "labelbox"), "labelbox", 72, 11, 0)
-	synthSweep(t, filepath.Join(bin, "valve-from-above"), "valve", 12, 12, 80)
+	synthSweep(t, filepath.Join(bin, "valve-from-above"), "valve", 6, 12, 75)
 	corruptCopy(t, filepath.Join(bin, "bushing"), filepath.Join(bin, "bushing-corrupt"))
 
 	store := openStore(t, filepath.Join(dir, "cat"))

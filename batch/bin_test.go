@@ -1,19 +1,25 @@
 package batch
 
 import (
+	"context"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"os"
 	"path/filepath"
 	"reflect"
 	"strings"
+	"sync"
 	"testing"
+
+	"github.com/scanfold/scanfold/catalog"
+	"github.com/scanfold/scanfold/onboard"
 )
 
 func TestParseBin(t *testing.T) {
 	parts, err := ParseBin([]byte(`{"format": "scanfold.bin", "version": 1, "parts": [
   {"name": "bracket", "sweep": "sweeps/bracket"},
-  {"name": "valve", "sweep": "/data/valve", "reference": "cad/valve.stl", "reference_unit": "1mm"}
+  {"name": "valve", "sweep": "/data/valve", "reference": "cad/valve.stl", "reference_unit": "1mm", "rests": "as-scanned"}
 ]}`))
 	if err != nil {
 		t.Fatal(err)
@@ -21,7 +27,7 @@ func TestParseBin(t *testing.T) {
 	want := []Part{
 		{Name: "bracket", Sweep: "sweeps/bracket", ReferenceUnit: 1},
 		// units.ParseLength divides by 1000: "1mm" is the float64 nearest 0.001.
-		{Name: "valve", Sweep: "/data/valve", Reference: "cad/valve.stl", ReferenceUnit: 0.001},
+		{Name: "valve", Sweep: "/data/valve", Reference: "cad/valve.stl", ReferenceUnit: 0.001, Rests: "as-scanned"},
 	}
 	if !reflect.DeepEqual(parts, want) {
 		t.Errorf("got %+v\nwant %+v", parts, want)
@@ -43,6 +49,7 @@ func TestParseBin(t *testing.T) {
 		{"no sweep", `{"parts": [{"name": "a"}]}`, "parts[0].sweep: missing"},
 		{"bad unit", `{"parts": [{"name": "a", "sweep": "s", "reference": "r.stl", "reference_unit": "1 inch"}]}`, "parts[0].reference_unit"},
 		{"negative unit", `{"parts": [{"name": "a", "sweep": "s", "reference": "r.stl", "reference_unit": "-1mm"}]}`, "parts[0].reference_unit"},
+		{"rests", `{"parts": [{"name": "a", "sweep": "s", "rests": "upside-down"}]}`, "parts[0].rests"},
 		{"unit alone", `{"parts": [{"name": "a", "sweep": "s", "reference_unit": "1mm"}]}`, "given without a reference"},
 	} {
 		_, err := ParseBin([]byte(tc.data))
@@ -192,4 +199,41 @@ func FuzzParseSummary(f *testing.F) {
 			t.Fatalf("round trip changed the summary")
 		}
 	})
+}
+
+// TestPartRests: a part's "rests" in bin.json overrides the run's
+// setting for that part alone.
+func TestPartRests(t *testing.T) {
+	sweep := testSweep(t, "nut", 2, 1)
+	dir := t.TempDir()
+	bin := filepath.Join(dir, "bin")
+	if err := os.MkdirAll(bin, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	list := fmt.Sprintf(`{"parts": [{"name": "tray", "sweep": %q, "rests": "as-scanned"}, {"name": "loose", "sweep": %q, "rests": "any"}, {"name": "plain", "sweep": %q}]}`, sweep, sweep, sweep)
+	if err := os.WriteFile(filepath.Join(bin, BinFile), []byte(list), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	defer func(f func(context.Context, string, string, *catalog.Store, onboard.Options) (*onboard.Result, error)) {
+		onboardFunc = f
+	}(onboardFunc)
+	var mu sync.Mutex
+	got := map[string]bool{}
+	onboardFunc = func(ctx context.Context, sweep, name string, store *catalog.Store, opt onboard.Options) (*onboard.Result, error) {
+		mu.Lock()
+		got[name] = opt.Check.RestsAsScanned
+		mu.Unlock()
+		return nil, errors.New("stand-in")
+	}
+	for _, runSetting := range []bool{false, true} {
+		opt := quickOptions()
+		opt.Onboard.Check.RestsAsScanned = runSetting
+		opt.RetryFailed = true
+		if _, err := Run(context.Background(), bin, openStore(t, filepath.Join(dir, "cat")), opt); err != nil {
+			t.Fatal(err)
+		}
+		if want := map[string]bool{"tray": true, "loose": false, "plain": runSetting}; !reflect.DeepEqual(got, want) {
+			t.Errorf("run setting %v: parts rest as scanned %v, want %v", runSetting, got, want)
+		}
+	}
 }
