@@ -572,7 +572,17 @@ func Check(ctx context.Context, in CheckInput, opt CheckOptions) (*CheckResult, 
 			}
 		}
 		if best < 0 {
-			return nil, fmt.Errorf("validate: check: the part rests as scanned, but none of its %d resting poses stands it on the face it stood on in its sweep (within 15°)", len(res.Stable.Poses))
+			// The model does not rest stably that way (a scan too rough
+			// for its resting face to be flat, or a part balanced on a
+			// fixture): stand it exactly as it stood, over its centroid.
+			c, _, _ := surfaceMoments(m)
+			res.Stable.Poses = append(res.Stable.Poses, StablePose{
+				ModelToSupport: mesh.Pose{R: mesh.Identity3(), T: r3.Vec{X: -c.X, Y: -c.Y, Z: -in.SupportZ}},
+				Normal:         r3.Vec{Z: -1},
+				Height:         c.Z - in.SupportZ,
+			})
+			best = len(res.Stable.Poses) - 1
+			res.Notes = append(res.Notes, "none of the model's resting poses stands it on the face it stood on in its sweep (within 15°): the views stand it exactly as it stood")
 		}
 		res.RestsAsScanned, res.ScannedRest = true, best
 	}

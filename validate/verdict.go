@@ -306,12 +306,12 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 			add(VerdictReview, CodeHoles, "The model has holes covering %s of its surface (%s)%s. Look at them in the openings picture; rescan if they are on a face the cell sees.",
 				pct(o.HoleFraction), fmtArea(o.HoleArea), largest)
 		}
-		if o.RecessArea > 0 {
+		if o.RecessFraction >= 0.001 {
 			add(VerdictReady, CodeRecesses, "Openings inside recesses (%s, %s of the closed surface) were not scanned: no camera of the sweep could see into them past the part's own walls, and a cell's camera from similar viewpoints sees as little. The views that show them are counted apart.",
 				fmtArea(o.RecessArea), pct(o.RecessFraction))
 		}
 		if res.RestsAsScanned {
-			if o.UndersideArea > 0 {
+			if o.UndersideFraction >= 0.001 {
 				add(VerdictReady, CodeUndersides, "Undersides facing down (%s, %s of the closed surface) were not scanned; the cell presents the part resting as it stood in the sweep, so it does not see them either.",
 					fmtArea(o.UndersideArea), pct(o.UndersideFraction))
 			}
@@ -330,7 +330,10 @@ func (r VerdictRules) Judge(res *CheckResult) []Reason {
 		where := ""
 		for i, reg := range c.Unseen {
 			if !resting[i] {
-				where = fmt.Sprintf("; the largest unseen region, %s, is at %s facing %s", fmtArea(reg.Area), vec3mm(reg.Centroid), facing(reg.Normal))
+				// The coverage mesh is in the sweep's world frame; the
+				// message speaks in the part frame, like the openings'.
+				toPart := res.worldToPart
+				where = fmt.Sprintf("; the largest unseen region, %s, is at %s facing %s", fmtArea(reg.Area), vec3mm(toPart.Apply(reg.Centroid)), facing(toPart.R.MulVec(reg.Normal)))
 				break
 			}
 		}
