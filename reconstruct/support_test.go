@@ -94,3 +94,40 @@ func TestFindSupportNoPart(t *testing.T) {
 		t.Fatalf("empty depth: err = %v, want ErrNoPart", err)
 	}
 }
+
+// TestFindSupportSmallPartOnPlate: the demo M16 hex nut on
+// the turntable plate, which stands on a table, seen from 0.55 m: the
+// support is the plate, not the table, and the part is the nut, not
+// the plate (the plate is 280 mm across). With a stride of 4 pixels the
+// nut of this sweep gave fewer grid points than MinPoints, and the
+// plate was taken for the part.
+func TestFindSupportSmallPartOnPlate(t *testing.T) {
+	if testing.Short() {
+		t.Skip("renders a frame")
+	}
+	opt := DefaultSynthOptions()
+	opt.Frames, opt.Seed, opt.PartName = 2, 21, "nut"
+	sw, err := LoadSweep(synthSweep(t, "nut", opt))
+	if err != nil {
+		t.Fatal(err)
+	}
+	fr, err := sw.Frame(0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s, err := FindSupport(fr.Depth, fr.Intr, DefaultSupportOptions())
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The nut's drawing: 24 mm across flats, 27.7 mm across corners
+	// (radius 13.9 mm), 13 mm high; 20 mm bounds both with room for
+	// noise at the rim.
+	if s.Radius > 0.02 || s.Height > 0.02 {
+		t.Errorf("part radius %.1f mm, height %.1f mm: not the nut", s.Radius*1000, s.Height*1000)
+	}
+	four := DefaultSupportOptions()
+	four.Stride = 4
+	if s4, err := FindSupport(fr.Depth, fr.Intr, four); err == nil {
+		t.Logf("stride 4: part radius %.1f mm, height %.1f mm", s4.Radius*1000, s4.Height*1000)
+	}
+}
