@@ -46,6 +46,13 @@ type SupportOptions struct {
 	// concluding that nothing stands on any of them.
 	// DEFAULT: 3
 	MaxPlanes int
+	// MaxFlatRadius: a raised plane on the support with nothing found on
+	// it and wider than this radius (metres) is a plate whose part went
+	// unseen, not a flat part lying there: an error wrapping ErrNoPart.
+	// 0 turns the test off.
+	// DEFAULT: 0.1 (parts are up to 150 mm long, a radius of 75 mm
+	// lying flat; turntable plates are wider)
+	MaxFlatRadius float64
 }
 
 // DefaultSupportOptions returns the documented defaults.
@@ -53,6 +60,7 @@ func DefaultSupportOptions() SupportOptions {
 	return SupportOptions{
 		RANSAC: DefaultRANSACOptions(), Stride: 2, MinDepth: 0.15, MaxDepth: 1.5,
 		Central: 0.6, MinHeight: 0.0025, MaxHeight: 0.3, MinPoints: 25, MaxPlanes: 3,
+		MaxFlatRadius: 0.1,
 	}
 }
 
@@ -143,6 +151,16 @@ func FindSupport(depth []float32, intr mesh.Intrinsics, opt SupportOptions) (Sup
 				break
 			}
 			next, err2 := partAbove(pts, grid, gw, gh, s, intr.Width, intr.Fx, top.Plane, opt, cx0, cx1, cy0, cy1)
+			if err2 != nil && opt.MaxFlatRadius > 0 {
+				// Nothing stands on the raised plane. A flat part lying
+				// on the support is such a plane too; one wider than
+				// any part is a plate whose part went unseen: fusing the
+				// plate as the part would be worse than stopping.
+				if r := planeSpread(sup.Points, top); r > opt.MaxFlatRadius {
+					return Support{}, fmt.Errorf("reconstruct: the support carries a flat plate %.0f mm across, %.0f mm up, with nothing of %d or more points on it (every %d pixels): the part on it is too small at this distance, or missing: %w",
+						2000*r, 1000*pl.Distance(sup.Points[top.Inliers[0]]), opt.MinPoints, s, ErrNoPart)
+				}
+			}
 			if err2 != nil || !surrounds(sup.Points, top, next) {
 				break
 			}
@@ -310,17 +328,31 @@ func refineSupport(pts []r3.Vec, grid []int32, gw, gh, s, width int, pl Plane, p
 func surrounds(points []r3.Vec, top PlaneFit, part Support) bool {
 	n := top.Plane.Normal
 	flat := func(v r3.Vec) r3.Vec { return r3.Sub(v, r3.Scale(r3.Dot(v, n), n)) }
+	c := inlierCentre(points, top)
+	spread := planeSpread(points, top)
+	return r3.Norm(flat(r3.Sub(part.Centre, c))) <= 0.8*spread && spread >= 1.5*part.Radius+0.01
+}
+
+// inlierCentre is the centroid of a plane fit's inliers.
+func inlierCentre(points []r3.Vec, top PlaneFit) r3.Vec {
 	var c r3.Vec
 	for _, i := range top.Inliers {
 		c = r3.Add(c, points[i])
 	}
-	c = r3.Scale(1/float64(len(top.Inliers)), c)
+	return r3.Scale(1/float64(len(top.Inliers)), c)
+}
+
+// planeSpread is the 95th percentile of the inliers' distance from
+// their centroid within the plane: the raised plane's radius.
+func planeSpread(points []r3.Vec, top PlaneFit) float64 {
+	n := top.Plane.Normal
+	c := inlierCentre(points, top)
 	d := make([]float64, 0, len(top.Inliers))
 	for _, i := range top.Inliers {
-		d = append(d, r3.Norm(flat(r3.Sub(points[i], c))))
+		v := r3.Sub(points[i], c)
+		d = append(d, r3.Norm(r3.Sub(v, r3.Scale(r3.Dot(v, n), n))))
 	}
-	spread := percentile(d, 0.95)
-	return r3.Norm(flat(r3.Sub(part.Centre, c))) <= 0.8*spread && spread >= 1.5*part.Radius+0.01
+	return percentile(d, 0.95)
 }
 
 func partAbove(pts []r3.Vec, grid []int32, gw, gh, s, width int, fx float64, pl Plane, opt SupportOptions, cx0, cx1, cy0, cy1 float64) (Support, error) {
