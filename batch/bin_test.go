@@ -237,3 +237,12 @@ func TestPartRests(t *testing.T) {
 		}
 	}
 }
+
+// TestShortReasons: the table's reasons leave out ready remarks and
+// put those that gave the verdict first.
+func TestShortReasons(t *testing.T) {
+	p := PartResult{Verdict: catalog.Rescan, Reasons: []string{"review: a", "ready: b", "rescan: c", "review: d", "rescan: e"}}
+	if got, want := p.ShortReasons(), []string{"rescan: c", "rescan: e", "review: a", "review: d"}; !reflect.DeepEqual(got, want) {
+		t.Errorf("got %q, want %q", got, want)
+	}
+}

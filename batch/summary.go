@@ -262,16 +262,20 @@ func writeFileAtomic(path string, data []byte) error {
 }
 
 // ShortReasons returns the reasons that are not "ready: …" remarks,
-// the ones a person must read, without the verdict prefix.
+// the ones a person must read: those that gave the part its verdict
+// first, then the others, each group in its order.
 func (p PartResult) ShortReasons() []string {
-	var out []string
+	var first, rest []string
 	for _, r := range p.Reasons {
-		if strings.HasPrefix(r, string(catalog.Ready)+":") {
-			continue
+		switch {
+		case strings.HasPrefix(r, string(catalog.Ready)+":"):
+		case p.Verdict != "" && strings.HasPrefix(r, string(p.Verdict)+":"):
+			first = append(first, r)
+		default:
+			rest = append(rest, r)
 		}
-		out = append(out, r)
 	}
-	return out
+	return append(first, rest...)
 }
 
 // Outcome is the word for the part in the summary table: its verdict,
