@@ -127,6 +127,28 @@ func BenchmarkRefine(b *testing.B) {
 	b.ReportMetric(float64(cpuTime()-c0)/float64(b.N)/1e6, "cpu-ms/op")
 }
 
+// BenchmarkVerify is Vote's verification of its ten refined hypotheses
+// (the scene support of each) in the valve's table scene.
+func BenchmarkVerify(b *testing.B) {
+	model, scene, dense, _, _ := tableScene(b, "valve")
+	opt := DefaultVoteOptions()
+	opt.RefineScene = dense
+	opt.Verify = false
+	hyps, err := Vote(model, scene, opt)
+	if err != nil {
+		b.Fatal(err)
+	}
+	work := make([]Hypothesis, len(hyps))
+	model.tree() // built once per model, outside the loop
+	c0 := cpuTime()
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		copy(work, hyps)
+		model.verify(work, scene.Points)
+	}
+	b.ReportMetric(float64(cpuTime()-c0)/float64(b.N)/1e6, "cpu-ms/op")
+}
+
 // BenchmarkICPPointToPlane2000 runs mesh.ICPPointToPlane with the k-d
 // tree on about 2,000 model points (the valve sampled at 2.4 mm)
 // against the dense scene, from the true pose disturbed by 2° and

@@ -223,7 +223,7 @@ func runRecall(t *testing.T, p recallPart, n int, seed uint64) recallStats {
 			for k, hk := range hyps {
 				ek := addsErr(pts, view.truth, hk.ModelToScene)
 				iou, agree := depthAgreement(t, rd, p.mesh, view.truth, hk.ModelToScene)
-				t.Logf("   #%d votes %.0f members %d err %.1f mm icp pairs %d inl %.2f rms %.3f  silhouette IoU %.3f depth agree %.3f", k, hk.Votes, hk.Members, ek*1e3, hk.ICP.Pairs, hk.ICP.InlierRatio, hk.ICP.RMS*1e3, iou, agree)
+				t.Logf("   #%d votes %.0f support %d members %d err %.1f mm icp pairs %d inl %.2f rms %.3f  silhouette IoU %.3f depth agree %.3f", k, hk.Votes, hk.Support, hk.Members, ek*1e3, hk.ICP.Pairs, hk.ICP.InlierRatio, hk.ICP.RMS*1e3, iou, agree)
 			}
 			rel := view.truth.Inv().Mul(h.ModelToScene)
 			ax, an := rel.AxisAngle()

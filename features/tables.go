@@ -137,6 +137,32 @@ type Model struct {
 	refs     []uint16
 	phis     []uint8
 	keyIndex []int32 // key → index into keys, or −1
+
+	// For Vote's verification, built on first use: a k-d tree of the
+	// cloud, its centroid and the largest distance from it.
+	verifyOnce sync.Once
+	verifyTree *mesh.KDTree
+	centre     r3.Vec
+	radius     float64
+}
+
+// tree returns the k-d tree of the model's cloud (with its centre and
+// radius), building them on first use.
+func (m *Model) tree() *mesh.KDTree {
+	m.verifyOnce.Do(func() {
+		pts := m.cloud.Points
+		m.verifyTree = mesh.NewKDTree(pts)
+		for _, p := range pts {
+			m.centre = r3.Add(m.centre, p)
+		}
+		if len(pts) > 0 {
+			m.centre = r3.Scale(1/float64(len(pts)), m.centre)
+		}
+		for _, p := range pts {
+			m.radius = math.Max(m.radius, r3.Norm(r3.Sub(p, m.centre)))
+		}
+	})
+	return m.verifyTree
 }
 
 // Cloud returns the model's cloud: the input's points and normals

@@ -66,6 +66,18 @@ type VoteOptions struct {
 	// better. nil means the model's own cloud.
 	// DEFAULT: nil
 	RefineModel *mesh.Cloud
+	// Verify counts the scene points each refined hypothesis's model
+	// explains (Hypothesis.Support) and puts first the one that explains
+	// clearly the most, when that is not the vote winner. Votes
+	// count pairs the model can explain, not the scene it leaves
+	// unexplained: an L-shaped part turned so that one flange lies on
+	// the other's place collects nearly the votes of the right pose, but
+	// leaves the scene's other flange unexplained. Checking hypotheses
+	// against the scene after refinement is common practice in PPF
+	// pipelines (e.g. Hinterstoisser et al. 2016 verify poses against
+	// the scene; recalled from memory, not their exact test).
+	// DEFAULT: true
+	Verify bool
 	// ICP tunes the refinement. Its MaxDistance and HuberDelta, when 0,
 	// are derived from the model: 0.1·diameter (the clustering
 	// tolerance: a hypothesis is that close) and the model spacing.
@@ -96,6 +108,7 @@ func DefaultVoteOptions() VoteOptions {
 		ClusterAngle:      24 * math.Pi / 180,
 		MaxHypotheses:     10,
 		Refine:            true,
+		Verify:            true,
 		ICP:               icp,
 	}
 }
@@ -135,6 +148,10 @@ type Hypothesis struct {
 	// iteration limit without error; ICP holds its result.
 	Refined bool
 	ICP     mesh.ICPResult
+	// Support is the number of points of the voting scene within half
+	// a model spacing of the model cloud at ModelToScene (with
+	// VoteOptions.Verify; 0 otherwise).
+	Support int
 }
 
 // candidate is one accumulator peak turned into a pose.
@@ -230,8 +247,66 @@ func Vote(model *Model, scene *mesh.Cloud, opt VoteOptions) ([]Hypothesis, error
 		if err := model.refine(hyps, scene, tree, opt); err != nil {
 			return nil, err
 		}
+		if opt.Verify {
+			model.verify(hyps, pts)
+		}
 	}
 	return hyps, nil
+}
+
+// verifyMargin: a hypothesis overtakes the vote winner when it explains
+// this many times as many scene points. Measured on clean renders
+// (features recall test, 100 views a part): the L-bracket with its two
+// flanges swapped leaves one flange's points unexplained (see Verify);
+// the valve's turned poses explain within 3 % of the right one.
+const verifyMargin = 1.1
+
+// verify counts each hypothesis's Support: the scene points that, moved
+// into the model frame, lie within half a model spacing of a model
+// point (the voting scene is sampled at about the model spacing, so a
+// scene point on the model's surface is nearer than that to the closest
+// model sample; the fine refinement's pair distance). It then moves
+// the refined hypothesis with the most support to the front when it
+// explains more than verifyMargin times what the vote winner does.
+func (m *Model) verify(hyps []Hypothesis, pts []r3.Vec) {
+	tree := m.tree()
+	lim := fineDistance * m.Spacing
+	lim2 := lim * lim
+	for i := range hyps {
+		if !hyps[i].Refined {
+			continue
+		}
+		inv := hyps[i].ModelToScene.Inv()
+		// Only scene points within the model's reach can count.
+		centre := hyps[i].ModelToScene.Apply(m.centre)
+		reach := m.radius + lim
+		n := 0
+		for _, p := range pts {
+			if r3.Norm2(r3.Sub(p, centre)) > reach*reach {
+				continue
+			}
+			if _, d2 := tree.Nearest(inv.Apply(p)); d2 <= lim2 {
+				n++
+			}
+		}
+		hyps[i].Support = n
+	}
+	// Votes stay the first judge: on a boxy part, poses turned by a
+	// quarter or half turn explain nearly as much of the scene as the
+	// right one (the valve: 143 against 146 points), and noise would
+	// pick among them. A hypothesis is moved to the front only when it
+	// explains clearly more than the vote winner.
+	best := -1
+	for i := range hyps {
+		if hyps[i].Refined && (best < 0 || hyps[i].Support > hyps[best].Support) {
+			best = i
+		}
+	}
+	if best > 0 && float64(hyps[best].Support) > verifyMargin*float64(hyps[0].Support) {
+		h := hyps[best]
+		copy(hyps[1:best+1], hyps[:best])
+		hyps[0] = h
+	}
 }
 
 // voteReference votes for scene reference point ri and writes its peaks

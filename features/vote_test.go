@@ -272,3 +272,28 @@ func TestVoteErrorsAndEmpty(t *testing.T) {
 		}
 	}
 }
+
+// TestVerify: in a scene that is the demo bracket's whole cloud, the
+// pose with its flanges swapped (a quarter turn about the bend, as the
+// recall test's wrong views show) explains far fewer scene points than
+// the right pose and loses the front place it had from the votes; a
+// pose that explains about as much as the vote winner (the right one,
+// shifted by a tenth of the spacing) does not overtake it.
+func TestVerify(t *testing.T) {
+	m, _ := partMesh(t, "bracket")
+	model := modelOf(t, m)
+	scene := model.Cloud().Points
+	right := mesh.Identity()
+	swapped := mesh.PoseFromAxisAngle(r3.Vec{X: -1}, math.Pi/2, r3.Vec{Y: -0.02, Z: 0.02})
+	hyps := []Hypothesis{{ModelToScene: swapped, Votes: 2, Refined: true}, {ModelToScene: right, Votes: 1, Refined: true}}
+	model.verify(hyps, scene)
+	if hyps[0].ModelToScene != right || hyps[0].Support != len(scene) || hyps[1].Support > len(scene)*3/4 {
+		t.Errorf("after verification: first %v support %d, second support %d of %d scene points", hyps[0].ModelToScene, hyps[0].Support, hyps[1].Support, len(scene))
+	}
+	near := mesh.Pose{R: mesh.Identity3(), T: r3.Vec{X: 0.1 * model.Spacing}}
+	hyps = []Hypothesis{{ModelToScene: near, Votes: 2, Refined: true}, {ModelToScene: right, Votes: 1, Refined: true}}
+	model.verify(hyps, scene)
+	if hyps[0].ModelToScene != near {
+		t.Errorf("a pose explaining about as much overtook the vote winner: supports %d, %d", hyps[0].Support, hyps[1].Support)
+	}
+}
