@@ -336,6 +336,11 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 	useNormals := len(src.Normals) == len(src.Points)
 	cosMax := math.Cos(opt.MaxNormalAngle)
 	maxD2 := opt.MaxDistance * opt.MaxDistance
+	// A finder that can bound its search (KDTree.NearestWithin) gives
+	// the same pairs faster.
+	bounded, _ := near.(interface {
+		NearestWithin(q r3.Vec, maxD2 float64) (int, float64)
+	})
 	pose := init
 	res := ICPResult{Pose: pose}
 	// Fixed slices: the same partition whatever GOMAXPROCS is, so the
@@ -349,7 +354,13 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 			*sys = PlaneSystem{}
 			for i := k * slice; i < min((k+1)*slice, len(src.Points)); i++ {
 				p := pose.Apply(src.Points[i])
-				j, d2 := near.Nearest(p)
+				var j int
+				var d2 float64
+				if bounded != nil {
+					j, d2 = bounded.NearestWithin(p, maxD2)
+				} else {
+					j, d2 = near.Nearest(p)
+				}
 				if j < 0 || d2 > maxD2 {
 					continue
 				}

@@ -218,6 +218,27 @@ func (t *KDTree) Nearest(q r3.Vec) (index int, dist2 float64) {
 	return int(s.best), s.bestD
 }
 
+// NearestWithin is Nearest limited to points within squared distance
+// maxD2 of q: it returns what Nearest returns when that point lies
+// within maxD2 (inclusive), else (−1, +Inf). The bound prunes the
+// search from the start, which ICP, rejecting farther pairs anyway,
+// exploits.
+func (t *KDTree) NearestWithin(q r3.Vec, maxD2 float64) (index int, dist2 float64) {
+	if !(maxD2 >= 0) {
+		return -1, math.Inf(1)
+	}
+	// best starts above every index, so that a point at exactly maxD2
+	// is taken by the tie rule.
+	s := nnSearch{q: [3]float64{q.X, q.Y, q.Z}, best: math.MaxInt32, bestD: maxD2}
+	if len(t.index) > 0 && isFinite(q) {
+		t.nearest(&s, 0, 0, len(t.index), 0, [3]float64{})
+	}
+	if s.best == math.MaxInt32 {
+		return -1, math.Inf(1)
+	}
+	return int(s.best), s.bestD
+}
+
 // nearest searches the cell of node, covering [lo, hi) at level; off
 // holds, per axis, the distance from q to the cell's slab along that
 // axis (zero when q is inside it).

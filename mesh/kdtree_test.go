@@ -188,6 +188,37 @@ func TestKDTreeNearestMatchesBruteForce(t *testing.T) {
 	}
 }
 
+// TestKDTreeNearestWithinMatchesBruteForce: the bounded query agrees
+// with the oracle's nearest point whenever that lies within the bound
+// (inclusive: the bound is set to some queries' exact nearest squared
+// distance) and finds nothing otherwise.
+func TestKDTreeNearestWithinMatchesBruteForce(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	for _, c := range kdCloudCases() {
+		tree := NewKDTree(c.pts)
+		for k, q := range kdQueries(rng, c, 200) {
+			wantI, wantD := kdOracleNearest(c.pts, q)
+			bounds := []float64{0, 1e-6, 0.01, 1, math.Inf(1)}
+			if wantI >= 0 {
+				bounds = append(bounds, wantD, math.Nextafter(wantD, 0))
+			}
+			for _, b := range bounds {
+				gotI, gotD := tree.NearestWithin(q, b)
+				ei, ed := wantI, wantD
+				if !(wantD <= b) {
+					ei, ed = -1, math.Inf(1)
+				}
+				if gotI != ei || gotD != ed {
+					t.Fatalf("%s query %d: NearestWithin(%v, %g) = (%d, %g), want (%d, %g)", c.name, k, q, b, gotI, gotD, ei, ed)
+				}
+			}
+		}
+		if i, d := tree.NearestWithin(r3.Vec{}, math.NaN()); i != -1 || !math.IsInf(d, 1) {
+			t.Errorf("%s: a NaN bound gave (%d, %g)", c.name, i, d)
+		}
+	}
+}
+
 func TestKDTreeKNearestMatchesBruteForce(t *testing.T) {
 	rng := rand.New(rand.NewPCG(5, 6))
 	var buf []Neighbor
