@@ -67,6 +67,15 @@ func (k Intrinsics) Project(p r3.Vec) (u, v float64) {
 	return k.Fx*p.X/p.Z + k.Cx, k.Fy*p.Y/p.Z + k.Cy
 }
 
+// Pixel returns the pixel whose centre is nearest to where the
+// camera-frame point p projects (pixel centres at integer coordinates),
+// and whether that pixel lies inside the image. p.Z must be positive.
+func (k Intrinsics) Pixel(p r3.Vec) (x, y int, ok bool) {
+	u, v := k.Project(p)
+	x, y = int(math.Floor(u+0.5)), int(math.Floor(v+0.5))
+	return x, y, x >= 0 && y >= 0 && x < k.Width && y < k.Height
+}
+
 // BackProject returns the camera-frame point at pixel (u, v) with depth
 // z along the optical axis: X = (u − Cx)·z/Fx, Y = (v − Cy)·z/Fy.
 func (k Intrinsics) BackProject(u, v, z float64) r3.Vec {

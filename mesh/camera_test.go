@@ -137,3 +137,27 @@ func TestIntrinsicsValidate(t *testing.T) {
 		t.Errorf("principal point on the image edge: %v", err)
 	}
 }
+
+// TestIntrinsicsPixel: pixel centres sit at integer coordinates (the
+// render package's convention), so a point projecting to u = 319.5
+// rounds up to pixel 320 and one at u = −0.6 is outside. Worked by
+// hand from u = fx·X/Z + cx.
+func TestIntrinsicsPixel(t *testing.T) {
+	k := Intrinsics{Width: 640, Height: 480, Fx: 500, Fy: 500, Cx: 319.5, Cy: 239.5}
+	for _, c := range []struct {
+		p      r3.Vec
+		x, y   int
+		inside bool
+	}{
+		{r3.Vec{Z: 1}, 320, 240, true},                          // (319.5, 239.5)
+		{r3.Vec{X: 0.001, Y: -0.002, Z: 0.5}, 321, 238, true},   // (320.5, 237.5): halves round up
+		{r3.Vec{X: -0.3199, Z: 0.5}, 0, 240, true},              // u = −0.4: still pixel 0
+		{r3.Vec{X: -0.3202, Y: 0, Z: 0.5}, -1, 240, false},      // u = −0.7
+		{r3.Vec{X: 0.3202, Y: 0.2402, Z: 0.5}, 640, 480, false}, // (639.7, 479.7)
+	} {
+		x, y, in := k.Pixel(c.p)
+		if x != c.x || y != c.y || in != c.inside {
+			t.Errorf("Pixel(%v) = (%d, %d, %v), want (%d, %d, %v)", c.p, x, y, in, c.x, c.y, c.inside)
+		}
+	}
+}

@@ -156,7 +156,7 @@ func FindSupport(depth []float32, intr mesh.Intrinsics, opt SupportOptions) (Sup
 				// on the support is such a plane too; one wider than
 				// any part is a plate whose part went unseen: fusing the
 				// plate as the part would be worse than stopping.
-				if r := planeSpread(sup.Points, top); r > opt.MaxFlatRadius {
+				if _, r := planeSpread(sup.Points, top); r > opt.MaxFlatRadius {
 					return Support{}, fmt.Errorf("reconstruct: the support carries a flat plate %.0f mm across, %.0f mm up, with nothing of %d or more points on it (every %d pixels): the part on it is too small at this distance, or missing: %w",
 						2000*r, 1000*pl.Distance(sup.Points[top.Inliers[0]]), opt.MinPoints, s, ErrNoPart)
 				}
@@ -328,31 +328,26 @@ func refineSupport(pts []r3.Vec, grid []int32, gw, gh, s, width int, pl Plane, p
 func surrounds(points []r3.Vec, top PlaneFit, part Support) bool {
 	n := top.Plane.Normal
 	flat := func(v r3.Vec) r3.Vec { return r3.Sub(v, r3.Scale(r3.Dot(v, n), n)) }
-	c := inlierCentre(points, top)
-	spread := planeSpread(points, top)
+	c, spread := planeSpread(points, top)
 	return r3.Norm(flat(r3.Sub(part.Centre, c))) <= 0.8*spread && spread >= 1.5*part.Radius+0.01
 }
 
-// inlierCentre is the centroid of a plane fit's inliers.
-func inlierCentre(points []r3.Vec, top PlaneFit) r3.Vec {
+// planeSpread returns the centroid of a plane fit's inliers and the
+// 95th percentile of their distance from it within the plane: the
+// raised plane's radius.
+func planeSpread(points []r3.Vec, top PlaneFit) (r3.Vec, float64) {
+	n := top.Plane.Normal
 	var c r3.Vec
 	for _, i := range top.Inliers {
 		c = r3.Add(c, points[i])
 	}
-	return r3.Scale(1/float64(len(top.Inliers)), c)
-}
-
-// planeSpread is the 95th percentile of the inliers' distance from
-// their centroid within the plane: the raised plane's radius.
-func planeSpread(points []r3.Vec, top PlaneFit) float64 {
-	n := top.Plane.Normal
-	c := inlierCentre(points, top)
+	c = r3.Scale(1/float64(len(top.Inliers)), c)
 	d := make([]float64, 0, len(top.Inliers))
 	for _, i := range top.Inliers {
 		v := r3.Sub(points[i], c)
 		d = append(d, r3.Norm(r3.Sub(v, r3.Scale(r3.Dot(v, n), n))))
 	}
-	return percentile(d, 0.95)
+	return c, percentile(d, 0.95)
 }
 
 func partAbove(pts []r3.Vec, grid []int32, gw, gh, s, width int, fx float64, pl Plane, opt SupportOptions, cx0, cx1, cy0, cy1 float64) (Support, error) {

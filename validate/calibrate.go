@@ -320,6 +320,36 @@ func Separate(right, wrong []float64) Separation {
 	return Separation{AUC: AUC(right, wrong), Gap: Percentile(right, 0.05) - Percentile(wrong, 0.95)}
 }
 
+// combinations returns the grid's weight combinations on top of base,
+// in the order CalibrateWeights tries them (normal weight, colour
+// weight, occlusion penalty, free-space penalty, the last varying
+// fastest), leaving out those whose normal and colour weights sum above
+// 1. An empty axis or a combination base makes invalid is an error.
+func (grid WeightGrid) combinations(base PointScoreOptions) ([]PointScoreOptions, error) {
+	if len(grid.NormalWeight) == 0 || len(grid.ColorWeight) == 0 || len(grid.OcclusionPenalty) == 0 || len(grid.FreeSpacePenalty) == 0 {
+		return nil, errors.New("validate: weight calibration grid has an empty axis")
+	}
+	var out []PointScoreOptions
+	for _, wn := range grid.NormalWeight {
+		for _, wc := range grid.ColorWeight {
+			if wn+wc > 1 {
+				continue
+			}
+			for _, wo := range grid.OcclusionPenalty {
+				for _, wf := range grid.FreeSpacePenalty {
+					o := base
+					o.NormalWeight, o.ColorWeight, o.OcclusionPenalty, o.FreeSpacePenalty = wn, wc, wo, wf
+					if err := o.Validate(); err != nil {
+						return nil, err
+					}
+					out = append(out, o)
+				}
+			}
+		}
+	}
+	return out, nil
+}
+
 // CalibrateWeights picks PointScore's weights on a small grid to
 // separate right from wrong hypotheses on labelled scenes (the check's
 // own renders): every combination of the grid's values, with the other
@@ -339,39 +369,26 @@ func CalibrateWeights(m *ScoreModel, set []Labelled, base PointScoreOptions, gri
 	if nr == 0 || nr == len(set) {
 		return base, Separation{}, fmt.Errorf("validate: weight calibration needs right and wrong hypotheses (%d right of %d)", nr, len(set))
 	}
-	if len(grid.NormalWeight) == 0 || len(grid.ColorWeight) == 0 || len(grid.OcclusionPenalty) == 0 || len(grid.FreeSpacePenalty) == 0 {
-		return base, Separation{}, errors.New("validate: weight calibration grid has an empty axis")
+	combos, err := grid.combinations(base)
+	if err != nil {
+		return base, Separation{}, err
 	}
 	best := base
 	bestSep := Separation{AUC: math.Inf(-1), Gap: math.Inf(-1)}
 	right := make([]float64, 0, nr)
 	wrong := make([]float64, 0, len(set)-nr)
-	for _, wn := range grid.NormalWeight {
-		for _, wc := range grid.ColorWeight {
-			if wn+wc > 1 {
-				continue
+	for _, opt := range combos {
+		right, wrong = right[:0], wrong[:0]
+		for _, l := range set {
+			s := PointScore(m, l.ModelToCam, l.Obs, opt).Score
+			if l.Right {
+				right = append(right, s)
+			} else {
+				wrong = append(wrong, s)
 			}
-			for _, wo := range grid.OcclusionPenalty {
-				for _, wf := range grid.FreeSpacePenalty {
-					opt := base
-					opt.NormalWeight, opt.ColorWeight, opt.OcclusionPenalty, opt.FreeSpacePenalty = wn, wc, wo, wf
-					if err := opt.Validate(); err != nil {
-						return base, Separation{}, err
-					}
-					right, wrong = right[:0], wrong[:0]
-					for _, l := range set {
-						s := PointScore(m, l.ModelToCam, l.Obs, opt).Score
-						if l.Right {
-							right = append(right, s)
-						} else {
-							wrong = append(wrong, s)
-						}
-					}
-					if sep := Separate(right, wrong); sep.better(bestSep) {
-						best, bestSep = opt, sep
-					}
-				}
-			}
+		}
+		if sep := Separate(right, wrong); sep.better(bestSep) {
+			best, bestSep = opt, sep
 		}
 	}
 	return best, bestSep, nil

@@ -1417,33 +1417,12 @@ func calibrateWeightsGroups(m *ScoreModel, set []Labelled, groups [][]int, base 
 			errs[g] = fmt.Errorf("validate: weight calibration needs right and wrong hypotheses (%d right of %d)", nr, len(idx))
 		}
 	}
-	if len(grid.NormalWeight) == 0 || len(grid.ColorWeight) == 0 || len(grid.OcclusionPenalty) == 0 || len(grid.FreeSpacePenalty) == 0 {
+	combos, err := grid.combinations(base)
+	if err != nil {
 		for g := range errs {
-			errs[g] = errors.New("validate: weight calibration grid has an empty axis")
+			errs[g] = err
 		}
 		return fitted, errs
-	}
-	// The combinations in CalibrateWeights's order.
-	var combos []PointScoreOptions
-	for _, wn := range grid.NormalWeight {
-		for _, wc := range grid.ColorWeight {
-			if wn+wc > 1 {
-				continue
-			}
-			for _, wo := range grid.OcclusionPenalty {
-				for _, wf := range grid.FreeSpacePenalty {
-					o := base
-					o.NormalWeight, o.ColorWeight, o.OcclusionPenalty, o.FreeSpacePenalty = wn, wc, wo, wf
-					if err := o.Validate(); err != nil {
-						for g := range errs {
-							errs[g] = err
-						}
-						return fitted, errs
-					}
-					combos = append(combos, o)
-				}
-			}
-		}
 	}
 	scores := make([][]float64, len(combos))
 	forEach(context.Background(), len(combos), workers, func(c int) error {

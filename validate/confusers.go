@@ -123,10 +123,6 @@ func (pc *partCheck) confusers(ctx context.Context, others []NamedModel, res *Ch
 	// Jobs: the checked part's k scenes (each voted by every other
 	// part's tables), then each other part's k scenes (voted by the
 	// checked part's tables).
-	type sideScore struct {
-		best  float64
-		found bool
-	}
 	own := make([][]sideScore, len(cms))     // [confuser][scene]: confuser's best in the part's scenes
 	foreign := make([][]sideScore, len(cms)) // [confuser][scene]: the part's best in the confuser's scenes
 	ownTruth := make([][]float64, len(cms))  // the confuser's score at its truth in its scenes
@@ -142,65 +138,27 @@ func (pc *partCheck) confusers(ctx context.Context, others []NamedModel, res *Ch
 	progress("confusers", 0, total)
 	err = forEach(ctx, total, workers, func(j int) error {
 		if j < k {
-			so := sopt
-			so.Seed = opt.Seed ^ 0xc0f05e
-			g, err := NewSceneGenerator(pc.scene, res.Stable.Poses, nil, so)
+			sc, obs, err := confuserScene(pc.scene, res.Stable.Poses, sopt, opt.Seed^0xc0f05e, j)
 			if err != nil {
 				return err
 			}
-			sc, err := g.Scene(j)
-			if err != nil {
-				return err
-			}
-			obs, err := ObservationFromFrame(sc.Frame)
-			if err != nil {
-				return err
-			}
-			up, d := tableInCamera(sc)
 			partTruth[j] = PointScore(pc.score, sc.ModelToCam, obs, pc.calibrated).Score
 			for i, cm := range cms {
-				hyps, err := cm.pc.voteScene(sc.Frame.Depth, sc.Frame.Intr, up, d)
-				if err != nil {
+				if own[i][j], err = cm.pc.bestIn(sc, obs); err != nil {
 					return err
 				}
-				b := sideScore{best: math.Inf(-1)}
-				for _, h := range hyps {
-					if s := PointScore(cm.pc.score, h.ModelToScene, obs, cm.pc.calibrated).Score; s > b.best {
-						b = sideScore{s, true}
-					}
-				}
-				own[i][j] = b
 			}
 		} else {
 			i, s := (j-k)/k, (j-k)%k
 			cm := cms[i]
-			so := sopt
-			so.Seed = opt.Seed ^ nameSeed(cm.named.Name)
-			g, err := NewSceneGenerator(cm.named.Mesh, cm.stable, nil, so)
+			sc, obs, err := confuserScene(cm.named.Mesh, cm.stable, sopt, opt.Seed^nameSeed(cm.named.Name), s)
 			if err != nil {
 				return err
 			}
-			sc, err := g.Scene(s)
-			if err != nil {
-				return err
-			}
-			obs, err := ObservationFromFrame(sc.Frame)
-			if err != nil {
-				return err
-			}
-			up, d := tableInCamera(sc)
 			ownTruth[i][s] = PointScore(cm.pc.score, sc.ModelToCam, obs, cm.pc.calibrated).Score
-			hyps, err := pc.voteScene(sc.Frame.Depth, sc.Frame.Intr, up, d)
-			if err != nil {
+			if foreign[i][s], err = pc.bestIn(sc, obs); err != nil {
 				return err
 			}
-			b := sideScore{best: math.Inf(-1)}
-			for _, h := range hyps {
-				if sc := PointScore(pc.score, h.ModelToScene, obs, pc.calibrated).Score; sc > b.best {
-					b = sideScore{sc, true}
-				}
-			}
-			foreign[i][s] = b
 		}
 		mu.Lock()
 		done++
@@ -281,6 +239,50 @@ func newConfuserModel(o NamedModel, opt CheckOptions) (*confuserModel, error) {
 		return nil, err
 	}
 	return &confuserModel{named: o, pc: pc, stable: st.Poses}, nil
+}
+
+// sideScore is the best score a part's hypotheses reach in one
+// confuser scene, and whether there were any.
+type sideScore struct {
+	best  float64
+	found bool
+}
+
+// confuserScene renders scene idx of a confuser test: m alone on the
+// table in one of its resting poses, with the scene options and seed
+// given, and its observation.
+func confuserScene(m *mesh.Mesh, poses []StablePose, sopt SceneOptions, seed uint64, idx int) (*Scene, *Observation, error) {
+	sopt.Seed = seed
+	g, err := NewSceneGenerator(m, poses, nil, sopt)
+	if err != nil {
+		return nil, nil, err
+	}
+	sc, err := g.Scene(idx)
+	if err != nil {
+		return nil, nil, err
+	}
+	obs, err := ObservationFromFrame(sc.Frame)
+	if err != nil {
+		return nil, nil, err
+	}
+	return sc, obs, nil
+}
+
+// bestIn votes for pc's part in sc and returns the best point score of
+// its hypotheses there (found false when there were none).
+func (pc *partCheck) bestIn(sc *Scene, obs *Observation) (sideScore, error) {
+	up, d := tableInCamera(sc)
+	hyps, err := pc.voteScene(sc.Frame.Depth, sc.Frame.Intr, up, d)
+	if err != nil {
+		return sideScore{}, err
+	}
+	b := sideScore{best: math.Inf(-1)}
+	for _, h := range hyps {
+		if s := PointScore(pc.score, h.ModelToScene, obs, pc.calibrated).Score; s > b.best {
+			b = sideScore{s, true}
+		}
+	}
+	return b, nil
 }
 
 // tableInCamera returns the table plane of a scene in its camera

@@ -235,9 +235,8 @@ func colorAgreement(m *ScoreModel, modelToCam mesh.Pose, obs *Observation, opt P
 		if cosT < 0.5 { // within 60° of facing: colour at grazing angles is mostly shading
 			continue
 		}
-		x := int(math.Floor(k.Fx*pc.X/pc.Z + k.Cx + 0.5))
-		y := int(math.Floor(k.Fy*pc.Y/pc.Z + k.Cy + 0.5))
-		if x < 0 || y < 0 || x >= k.Width || y >= k.Height {
+		x, y, in := k.Pixel(pc)
+		if !in {
 			continue
 		}
 		pix := y*k.Width + x

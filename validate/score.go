@@ -194,7 +194,7 @@ func DefaultBaselineOptions() BaselineOptions {
 // depth. It allocates nothing.
 func BaselineScore(m *ScoreModel, modelToCam mesh.Pose, obs *Observation, opt BaselineOptions) ScoreDetail {
 	var d ScoreDetail
-	w, h := obs.Intr.Width, obs.Intr.Height
+	w := obs.Intr.Width
 	k := obs.Intr
 	for i, p := range m.Points {
 		pc := modelToCam.Apply(p)
@@ -206,9 +206,8 @@ func BaselineScore(m *ScoreModel, modelToCam mesh.Pose, obs *Observation, opt Ba
 		if cosT < minFacing {
 			continue
 		}
-		x := int(math.Floor(k.Fx*pc.X/pc.Z + k.Cx + 0.5))
-		y := int(math.Floor(k.Fy*pc.Y/pc.Z + k.Cy + 0.5))
-		if x < 0 || y < 0 || x >= w || y >= h {
+		x, y, in := k.Pixel(pc)
+		if !in {
 			continue
 		}
 		d.Expected++
@@ -354,9 +353,8 @@ func PointScore(m *ScoreModel, modelToCam mesh.Pose, obs *Observation, opt Point
 		if cosT < minFacing {
 			continue
 		}
-		x := int(math.Floor(k.Fx*pc.X/pc.Z + k.Cx + 0.5))
-		y := int(math.Floor(k.Fy*pc.Y/pc.Z + k.Cy + 0.5))
-		if x < 0 || y < 0 || x >= w || y >= h {
+		x, y, in := k.Pixel(pc)
+		if !in {
 			continue
 		}
 		d.Expected++
