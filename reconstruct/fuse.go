@@ -45,17 +45,16 @@ type FuseOptions struct {
 	// aligned with the first frame both ways.
 	// DEFAULT: 6
 	AxisViews int
-	// AxisModelPasses is how many times an estimated axis is refined by
-	// fusing every frame about it and aligning twice AxisViews frames
-	// with the fused model (each pass costs one more fusion).
-	// DEFAULT: 0. Measured on nine 72-frame demo sweeps at 1.5 mm voxels,
-	// mean distance to the true surface without a pass and with one:
-	// bracket 0.428/0.456 and 0.257/0.277 mm, bushing 0.269/0.317,
-	// labelbox 0.387/0.477 and 0.646/0.721, nut 0.753/0.888 and
-	// 0.788/0.965, valve 0.862/0.939 and 0.377/0.465: the pass drifts
-	// the axis further the way the view pairs already err (toward the
-	// camera), and doubles the fusion's time.
-	AxisModelPasses int
+	// PlateAxis places an estimated axis by the plate's texture
+	// (EstimateAxisFromPlate), searched around the estimate from the
+	// view pairs, from PlateViews frames spread around the turn; where
+	// the texture is too weak the view pairs' estimate stands. Zero
+	// PlateViews turns it off.
+	// DEFAULT: DefaultPlateAxisOptions(), 8 views. On twenty 72-frame
+	// demo sweeps the view pairs left the axis 0.15–1.9 mm off (toward
+	// the camera, the direction they see least), the plate 0.01–0.15 mm.
+	PlateAxis  PlateAxisOptions
+	PlateViews int
 	// RefineTurntable refines every turntable frame's pose by
 	// frame-to-model ICP against the volume so far (masked to the region
 	// of interest, damped, and refused beyond MaxRefineShift/Turn), for
@@ -130,7 +129,8 @@ func DefaultFuseOptions() FuseOptions {
 		TrackMaxDepth:        1.5,
 		Axis:                 DefaultAxisOptions(),
 		AxisViews:            6,
-		AxisModelPasses:      0,
+		PlateAxis:            DefaultPlateAxisOptions(),
+		PlateViews:           8,
 		RefineDamping:        1e-2,
 		MaxRefineShift:       0.0015,
 		MaxRefineTurn:        0.5 * math.Pi / 180,
@@ -173,22 +173,29 @@ type SkippedFrame struct {
 
 // FuseReport tells what Fuse did.
 type FuseReport struct {
-	Rig         Rig            `json:"rig"`
-	Frames      int            `json:"frames"`
-	FramesUsed  int            `json:"frames_used"`
-	Skipped     []SkippedFrame `json:"skipped,omitempty"`
-	VoxelSize   float64        `json:"voxel_size_m"`
-	AxisSource  string         `json:"axis_source,omitempty"` // "calibrated" or "estimated" (turntable)
-	Axis        *Axis          `json:"axis,omitempty"`
-	AxisRMS     float64        `json:"axis_rms_m,omitempty"`
-	Refined     int            `json:"refined_frames,omitempty"`
-	RefineMean  float64        `json:"refine_mean_shift_m,omitempty"`
-	Support     Plane          `json:"-"`
-	ROI         ROI            `json:"-"`
-	Blocks      int            `json:"blocks"`
-	Vertices    int            `json:"vertices"`
-	Triangles   int            `json:"triangles"`
-	CropRemoved int            `json:"support_triangles_removed"`
+	Rig        Rig            `json:"rig"`
+	Frames     int            `json:"frames"`
+	FramesUsed int            `json:"frames_used"`
+	Skipped    []SkippedFrame `json:"skipped,omitempty"`
+	VoxelSize  float64        `json:"voxel_size_m"`
+	AxisSource string         `json:"axis_source,omitempty"` // "calibrated" or "estimated" (turntable)
+	Axis       *Axis          `json:"axis,omitempty"`
+	AxisRMS    float64        `json:"axis_rms_m,omitempty"`
+	// AxisMethod says how an estimated axis was placed: "plate texture"
+	// or "view pairs"; PlateCorrelation is the plate texture's
+	// correlation at its estimate (DefaultPlateAxisOptions needs 0.6),
+	// AxisShift how far the plate moved the view pairs' estimate (m).
+	AxisMethod       string  `json:"axis_method,omitempty"`
+	PlateCorrelation float64 `json:"plate_correlation,omitempty"`
+	AxisShift        float64 `json:"axis_shift_m,omitempty"`
+	Refined          int     `json:"refined_frames,omitempty"`
+	RefineMean       float64 `json:"refine_mean_shift_m,omitempty"`
+	Support          Plane   `json:"-"`
+	ROI              ROI     `json:"-"`
+	Blocks           int     `json:"blocks"`
+	Vertices         int     `json:"vertices"`
+	Triangles        int     `json:"triangles"`
+	CropRemoved      int     `json:"support_triangles_removed"`
 	// CropHeight is how far above the support the surface was cut
 	// (metres): the model's rim where the part stood lies on the plane
 	// Support moved up by it.
@@ -480,71 +487,8 @@ func (f *fuser) turntable(ctx context.Context, worldFromFirst mesh.Pose) error {
 		f.setROI(f.sup.Plane, foot, r3.Norm(off)+f.sup.Radius)
 	}
 	setROI(point)
-	if !calibrated && f.opt.AxisModelPasses > 0 {
-		// Views aligned with each other pin the axis only as well as two
-		// noisy, partial clouds allow; a small part gives few points. A
-		// model fused from every frame about that axis is smooth and
-		// complete, so aligning frames with it pins the axis closer, and
-		// the model fused again about the better axis is sharper still.
-		skipped := len(f.rep.Skipped)
-		for pass := 0; pass < f.opt.AxisModelPasses; pass++ {
-			if err := f.turntablePass(ctx, point, up, rel, false, "fuse (axis pass)"); err != nil {
-				return err
-			}
-			f.rep.Skipped = f.rep.Skipped[:skipped]
-			fit, err := f.refineAxis(point, up, rel)
-			var err2 error
-			if f.part, err2 = NewVolume(f.opt.TSDF); err2 != nil {
-				return err2
-			}
-			f.rep.FramesUsed = 0
-			if err != nil {
-				break // keep the axis from the views
-			}
-			point = fit.Point
-			f.rep.AxisRMS = fit.RMS
-			setROI(point)
-		}
-	}
 	f.rep.Axis = &Axis{Point: point, Direction: up}
 	return f.turntablePass(ctx, point, up, rel, f.opt.RefineTurntable, "fuse")
-}
-
-// refineAxis aligns frames spread around the turn with the model fused
-// so far and returns the axis point that fits them best.
-func (f *fuser) refineAxis(point, up r3.Vec, rel func(int) (float64, bool)) (AxisFit, error) {
-	m, err := f.part.Extract(f.opt.MinWeight)
-	if err != nil {
-		return AxisFit{}, err
-	}
-	model := &mesh.Cloud{}
-	crop := 3 * axialSigma(r3.Norm(point), 0)
-	for i, v := range m.Vertices {
-		if f.roi.Plane.Distance(v) >= crop {
-			model.Points = append(model.Points, v)
-			model.Normals = append(model.Normals, m.Normals[i])
-		}
-	}
-	usable := f.sw.Usable()
-	n := min(len(usable), 2*max(1, f.opt.AxisViews))
-	var pairs []AxisPair
-	for k := 0; k < n; k++ {
-		idx := usable[k*len(usable)/n]
-		a, ok := rel(idx)
-		if !ok {
-			continue
-		}
-		fr, err := f.sw.Frame(idx)
-		if err != nil {
-			continue
-		}
-		if c := f.plateCloud(fr); len(c.Points) > 0 {
-			pairs = append(pairs, AxisPair{From: c, To: model, Angle: -a})
-		}
-	}
-	opt := f.opt.Axis
-	opt.MaxDistance, opt.FinalDistance = 0.005, 0.002
-	return EstimateAxisPoint(up, point, pairs, opt)
 }
 
 // turntablePass places every usable frame by its plate angle about the
@@ -642,6 +586,45 @@ func (f *fuser) estimateAxis(up r3.Vec) (AxisFit, error) {
 	}
 	fit, err := EstimateAxisPoint(up, f.sup.Centre, pairs, f.opt.Axis)
 	if err != nil {
+		return fit, fmt.Errorf("reconstruct: %s: turntable axis: %w", f.sw.Dir, err)
+	}
+	f.rep.AxisMethod = "view pairs"
+	if f.opt.PlateViews < 2 {
+		return fit, nil
+	}
+	var views []PlateView
+	for k := 0; k < f.opt.PlateViews; k++ {
+		idx := usable[k*len(usable)/f.opt.PlateViews]
+		a := m.Frames[idx].Angle
+		if a == nil || ref == nil {
+			continue
+		}
+		fr := f.first
+		if idx != f.first.Index {
+			if fr, err = f.sw.Frame(idx); err != nil {
+				continue
+			}
+		}
+		views = append(views, PlateView{Depth: fr.Depth, Color: fr.Color, Intr: fr.Intr, Angle: sign * (*a - *ref)})
+	}
+	radius := f.sup.SupportRadius
+	if radius == 0 {
+		radius = f.sup.Radius + f.opt.ROIMargin
+	}
+	pf, err := EstimateAxisFromPlate(f.sup.Plane, fit.Point, radius, views, f.opt.PlateAxis)
+	f.rep.PlateCorrelation = pf.Correlation
+	switch {
+	case err == nil:
+		// The plate fit lies on the plate's top plane; the view pairs'
+		// point lies on the plane through their start normal to up:
+		// the same line either way.
+		f.rep.AxisMethod = "plate texture"
+		d := r3.Sub(pf.Point, fit.Point)
+		f.rep.AxisShift = r3.Norm(r3.Sub(d, r3.Scale(r3.Dot(d, up), up)))
+		fit.Point = pf.Point
+	case errors.Is(err, ErrWeakTexture), errors.Is(err, mesh.ErrDegenerate):
+		// The view pairs' estimate stands.
+	default:
 		return fit, fmt.Errorf("reconstruct: %s: turntable axis: %w", f.sw.Dir, err)
 	}
 	return fit, nil
