@@ -48,7 +48,9 @@ func TestFuseTargets(t *testing.T) {
 			mean := meanOf(surfaceDistances(t, res.Mesh, seen, 400000))
 			_, _, f2 := fScore(t, res.Mesh, seen, 0.002)
 			_, _, f1 := fScore(t, res.Mesh, seen, 0.001)
-			t.Logf("%s turntable: mean %.3f mm, F@2mm %.3f, F@1mm %.3f, axis %s rms %.2f mm, %s", name, mean*1000, f2, f1, res.Report.AxisSource, res.Report.AxisRMS*1000, res.Report.Timings["total"])
+			r := res.Report
+			t.Logf("%s turntable: mean %.3f mm, F@2mm %.3f, F@1mm %.3f, axis %s by %s (correlation %.3f, %.2f mm from the view pairs'), %s",
+				name, mean*1000, f2, f1, r.AxisSource, r.AxisMethod, r.PlateCorrelation, r.AxisShift*1000, r.Timings["total"])
 			if mean > 0.0005 || f2 < 0.95 || f1 < 0.80 {
 				t.Errorf("%s: mean %.3f mm (≤ 0.5), F@2mm %.3f (≥ 0.95), F@1mm %.3f (≥ 0.80)", name, mean*1000, f2, f1)
 			}

@@ -89,8 +89,11 @@ func printFuseReport(w io.Writer, dir, out string, r *reconstruct.FuseReport, to
 	if r.Axis != nil {
 		fmt.Fprintf(w, "  axis:       %s, through (%.1f, %.1f, %.1f) mm along (%.3f, %.3f, %.3f)", r.AxisSource,
 			r.Axis.Point.X*1000, r.Axis.Point.Y*1000, r.Axis.Point.Z*1000, r.Axis.Direction.X, r.Axis.Direction.Y, r.Axis.Direction.Z)
-		if r.AxisRMS > 0 {
-			fmt.Fprintf(w, ", fit residual %.2f mm", r.AxisRMS*1000)
+		switch r.AxisMethod {
+		case "plate texture":
+			fmt.Fprintf(w, " by the plate's texture (correlation %.2f, %.2f mm from the view pairs' estimate)", r.PlateCorrelation, r.AxisShift*1000)
+		case "view pairs":
+			fmt.Fprintf(w, " by the view pairs (fit residual %.2f mm; the plate's texture too weak to use)", r.AxisRMS*1000)
 		}
 		fmt.Fprintln(w)
 	}
