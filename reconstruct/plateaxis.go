@@ -31,7 +31,7 @@ type PlateAxisOptions struct {
 	// Range is the half-width of the square, centred on the start, that
 	// is searched for the axis (metres); Step is the search's finest
 	// step.
-	// DEFAULT: 0.006, 0.00002
+	// DEFAULT: 0.006, 0.00004
 	Range, Step float64
 	// Band is how far from the plate's plane a depth reading may lie
 	// for its pixel to show the plate (metres); the part and whatever
@@ -50,7 +50,7 @@ type PlateAxisOptions struct {
 
 // DefaultPlateAxisOptions returns the documented defaults.
 func DefaultPlateAxisOptions() PlateAxisOptions {
-	return PlateAxisOptions{Cell: 0.001, Range: 0.006, Step: 0.00002, Band: 0.004, MinCorrelation: 0.6, MinCells: 2000}
+	return PlateAxisOptions{Cell: 0.001, Range: 0.006, Step: 0.00004, Band: 0.004, MinCorrelation: 0.6, MinCells: 2000}
 }
 
 // PlateAxisFit is the outcome of EstimateAxisFromPlate.
@@ -136,12 +136,12 @@ func EstimateAxisFromPlate(plate Plane, start r3.Vec, radius float64, views []Pl
 	for j := 1; j < len(views); j++ {
 		cs[j], sn[j] = math.Cos(views[j].Angle), math.Sin(views[j].Angle)
 	}
-	score := func(a, b float64) (float64, int) {
+	score := func(a, b float64, stride int) (float64, int) {
 		ncc := make([]float64, len(views))
 		cnt := make([]int, len(views))
 		par.For(len(views)-1, 0, func(k int) {
 			j := k + 1
-			ncc[j], cnt[j] = plateCorrelation(&imgs[0], &imgs[j], cs[j], sn[j], a, b, opt.Cell)
+			ncc[j], cnt[j] = plateCorrelation(&imgs[0], &imgs[j], cs[j], sn[j], a, b, stride)
 		})
 		var s float64
 		var c int
@@ -158,11 +158,27 @@ func EstimateAxisFromPlate(plate Plane, start r3.Vec, radius float64, views []Pl
 	}
 	fit := PlateAxisFit{}
 	var ca, cb float64
-	best, cells := score(0, 0)
-	fit.Evaluations++
 	step := opt.Range / 2
+	// Steps of several cells compare every fourth cell, steps over a
+	// quarter of a cell every second: the coarser levels only have to
+	// land in the right basin for the next.
+	stride := func(step float64) int {
+		switch {
+		case step >= 2*opt.Cell:
+			return 4
+		case step >= opt.Cell/4:
+			return 2
+		}
+		return 1
+	}
+	best, cells := score(0, 0, stride(step))
+	fit.Evaluations++
 	for {
 		ba, bb := ca, cb
+		if stride(step) != stride(3*step) {
+			best, cells = score(ca, cb, stride(step)) // rescore the centre at the finer sampling
+			fit.Evaluations++
+		}
 		for i := -2; i <= 2; i++ {
 			for j := -2; j <= 2; j++ {
 				if i == 0 && j == 0 {
@@ -172,7 +188,7 @@ func EstimateAxisFromPlate(plate Plane, start r3.Vec, radius float64, views []Pl
 				if math.Abs(a) > opt.Range || math.Abs(b) > opt.Range {
 					continue
 				}
-				s, c := score(a, b)
+				s, c := score(a, b, stride(step))
 				fit.Evaluations++
 				if s > best {
 					ba, bb, best, cells = a, b, s, c
@@ -209,7 +225,12 @@ type plateImage struct {
 	n    int
 	cell float64
 	lum  []float32
+	// cells lists the cells that show the plate: plane coordinates
+	// (metres) and luminance.
+	cells []plateCell
 }
+
+type plateCell struct{ x, y, lum float64 }
 
 func (p *plateImage) at(i, j int) float32 { return p.lum[(j+p.n)*(2*p.n+1)+i+p.n] }
 
@@ -275,6 +296,7 @@ func resamplePlate(vw PlateView, plate Plane, origin, u, v r3.Vec, n int, opt Pl
 			top := lum(x0, y0)*(1-tx) + lum(x0+1, y0)*tx
 			bot := lum(x0, y0+1)*(1-tx) + lum(x0+1, y0+1)*tx
 			img.lum[k] = float32(top*(1-ty) + bot*ty)
+			img.cells = append(img.cells, plateCell{float64(i) * opt.Cell, float64(j) * opt.Cell, float64(img.lum[k])})
 		}
 	}
 	return img
@@ -283,31 +305,25 @@ func resamplePlate(vw PlateView, plate Plane, origin, u, v r3.Vec, n int, opt Pl
 // plateCorrelation is the normalised cross-correlation between view
 // image b and the reference image a turned by (cos, sin) about the
 // trial point (ca, cb): b's cell at q shows what a showed at
-// R⁻¹(q − c) + c.
-func plateCorrelation(a, b *plateImage, cos, sin, ca, cb, cell float64) (float64, int) {
+// R⁻¹(q − c) + c. Every stride-th of b's cells is used.
+func plateCorrelation(a, b *plateImage, cos, sin, ca, cb float64, stride int) (float64, int) {
 	var sx, sy, sxx, syy, sxy float64
 	cnt := 0
-	n := b.n
-	for j := -n; j <= n; j++ {
-		for i := -n; i <= n; i++ {
-			y := b.at(i, j)
-			if y != y {
-				continue
-			}
-			qx, qy := float64(i)*cell-ca, float64(j)*cell-cb
-			px, py := cos*qx+sin*qy+ca, -sin*qx+cos*qy+cb
-			x, ok := a.sample(px, py)
-			if !ok {
-				continue
-			}
-			yf := float64(y)
-			sx += x
-			sy += yf
-			sxx += x * x
-			syy += yf * yf
-			sxy += x * yf
-			cnt++
+	// R⁻¹(q − c) + c = R⁻¹q + (c − R⁻¹c).
+	ox, oy := ca-(cos*ca+sin*cb), cb-(-sin*ca+cos*cb)
+	for k := 0; k < len(b.cells); k += stride {
+		q := &b.cells[k]
+		x, ok := a.sample(cos*q.x+sin*q.y+ox, -sin*q.x+cos*q.y+oy)
+		if !ok {
+			continue
 		}
+		y := q.lum
+		sx += x
+		sy += y
+		sxx += x * x
+		syy += y * y
+		sxy += x * y
+		cnt++
 	}
 	if cnt < 2 {
 		return 0, 0
@@ -317,5 +333,5 @@ func plateCorrelation(a, b *plateImage, cos, sin, ca, cb, cell float64) (float64
 	if !(vx > 0 && vy > 0) {
 		return 0, 0
 	}
-	return (sxy - sx*sy/nf) / math.Sqrt(vx*vy), cnt
+	return (sxy - sx*sy/nf) / math.Sqrt(vx*vy), cnt * stride
 }
