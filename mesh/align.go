@@ -139,6 +139,19 @@ type ICPOptions struct {
 	// (radians) when the source has normals.
 	// DEFAULT: π/4
 	MaxNormalAngle float64
+	// Symmetric measures each pair's residual along the sum of the two
+	// points' normals, the source's turned with the pose:
+	// r = (R·p + t − q)·N with N = (R·n_p + n_q)/|R·n_p + n_q|, the
+	// symmetric objective of Rusinkiewicz (2019, ACM TOG 38(4) 85, DOI
+	// 10.1145/3306346.3323037). It vanishes for any two points of a
+	// common sphere (and nearly so on a smooth surface), where the
+	// destination's plane alone leaves a residual that grows with the
+	// points' separation and the surface's curvature; and an error in
+	// either cloud's normals, such as a depth image's normals blurred
+	// across a crease by their estimation window, tilts N by half as
+	// much. The source must have normals.
+	// DEFAULT: false
+	Symmetric bool
 	// HuberDelta is the residual (metres) beyond which a pair's weight
 	// falls off as δ/|r| (Huber's M-estimator); 0 gives plain least
 	// squares.
@@ -201,8 +214,11 @@ type PlaneSystem struct {
 
 // Add adds the pair (p, q) with destination normal n and weight w.
 func (s *PlaneSystem) Add(p, q, n r3.Vec, w float64) {
-	r := r3.Dot(r3.Sub(p, q), n)
-	c := r3.Cross(p, n)
+	s.add(r3.Dot(r3.Sub(p, q), n), r3.Cross(p, n), n, w)
+}
+
+// add adds a residual r with Jacobian row (c, n) and weight w.
+func (s *PlaneSystem) add(r float64, c, n r3.Vec, w float64) {
 	jr := [6]float64{c.X, c.Y, c.Z, n.X, n.Y, n.Z}
 	k := 0
 	for u := 0; u < 6; u++ {
@@ -216,6 +232,27 @@ func (s *PlaneSystem) Add(p, q, n r3.Vec, w float64) {
 	s.SSE += w * r * r
 	s.W += w
 	s.Pairs++
+}
+
+// AddSymmetric adds the pair (p, q) with normals np (of the moved
+// source point, which turns with the motion) and nq under the symmetric
+// objective (ICPOptions.Symmetric): r = (p − q)·N/|N| with N = np + nq,
+// a distance. Under a small rotation ω (about the origin) and
+// translation t, p and np turn, so (p − q)·N changes by
+// ω·(p × N) + ω·(np × (p − q)) + t·N = ω·(p × nq + q × np) + t·N, and
+// |N| by ω·(np × nq)/|N|, to first order; hence the Jacobian row
+// ((p × nq + q × np − r·(np × nq)/|N|)/|N|, N/|N|). It does nothing when
+// the normals are opposite (N = 0).
+func (s *PlaneSystem) AddSymmetric(p, q, np, nq r3.Vec, w float64) {
+	n := r3.Add(np, nq)
+	l := r3.Norm(n)
+	if !(l > 1e-9) {
+		return
+	}
+	k := 1 / l
+	r := k * r3.Dot(r3.Sub(p, q), n)
+	c := r3.Sub(r3.Add(r3.Cross(p, nq), r3.Cross(q, np)), r3.Scale(r*k, r3.Cross(np, nq)))
+	s.add(r, r3.Scale(k, c), r3.Scale(k, n), w)
 }
 
 // Merge adds o's sums to s.
@@ -334,6 +371,9 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 	}
 	inv := 1 / scale
 	useNormals := len(src.Normals) == len(src.Points)
+	if opt.Symmetric && !useNormals {
+		return ICPResult{}, fmt.Errorf("mesh: symmetric point-to-plane ICP needs source normals (%d for %d points)", len(src.Normals), len(src.Points))
+	}
 	cosMax := math.Cos(opt.MaxNormalAngle)
 	maxD2 := opt.MaxDistance * opt.MaxDistance
 	// A finder that can bound its search (KDTree.NearestWithin) gives
@@ -365,17 +405,31 @@ func ICPPointToPlane(src, dst *Cloud, near NearestFinder, init Pose, opt ICPOpti
 					continue
 				}
 				n := dst.Normals[j]
-				if useNormals && r3.Dot(pose.Rotate(src.Normals[i]), n) < cosMax {
-					continue
+				var ns r3.Vec // the moved source normal
+				if useNormals {
+					ns = pose.Rotate(src.Normals[i])
+					if r3.Dot(ns, n) < cosMax {
+						continue
+					}
 				}
 				q := dst.Points[j]
 				w := 1.0
 				if opt.HuberDelta > 0 {
-					if r := math.Abs(r3.Dot(r3.Sub(p, q), n)); r > opt.HuberDelta {
+					d := r3.Sub(p, q)
+					r := math.Abs(r3.Dot(d, n))
+					if opt.Symmetric {
+						r = math.Abs(r3.Dot(d, r3.Add(ns, n))) / r3.Norm(r3.Add(ns, n))
+					}
+					if r > opt.HuberDelta {
 						w = opt.HuberDelta / r
 					}
 				}
-				sys.Add(r3.Scale(inv, r3.Sub(p, c)), r3.Scale(inv, r3.Sub(q, c)), n, w)
+				pc, qc := r3.Scale(inv, r3.Sub(p, c)), r3.Scale(inv, r3.Sub(q, c))
+				if opt.Symmetric {
+					sys.AddSymmetric(pc, qc, ns, n, w)
+				} else {
+					sys.Add(pc, qc, n, w)
+				}
 			}
 		})
 		var sys PlaneSystem

@@ -217,6 +217,117 @@ func TestICPMatchesClosedForm(t *testing.T) {
 	}
 }
 
+// TestICPSymmetricMatchesClosedForm is TestICPMatchesClosedForm with
+// the symmetric objective (Rusinkiewicz 2019): on noise-free data with
+// exact normals it must land on the same pose as the closed-form
+// Umeyama (1991) solution on the true correspondences (gonum's
+// spatial/transform).
+func TestICPSymmetricMatchesClosedForm(t *testing.T) {
+	rng := rand.New(rand.NewPCG(15, 16))
+	dst := boxSurfaceCloud(rng, 3000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
+	for trial := 0; trial < 5; trial++ {
+		truth := randomPose(rng, 5*math.Pi/180, 0.003) // src → dst
+		src := dst.Transform(truth.Inv())
+		opt := DefaultICPOptions()
+		opt.Symmetric = true
+		res, err := ICPPointToPlane(src, dst, NewKDTree(dst.Points), Identity(), opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		_, gr, gt, err := transform.UmeyamaTransform(toDense(src.Points), toDense(dst.Points))
+		if err != nil {
+			t.Fatal(err)
+		}
+		ref := Pose{T: r3.Vec{X: gt.AtVec(0), Y: gt.AtVec(1), Z: gt.AtVec(2)}}
+		for a := 0; a < 3; a++ {
+			for b := 0; b < 3; b++ {
+				ref.R[a][b] = gr.At(a, b)
+			}
+		}
+		// Tolerances as in TestICPMatchesClosedForm: the stop thresholds
+		// (1e-6 rad, 1e-7 m) plus rounding.
+		if a := RotationAngle(res.Pose, ref); a > 1e-5 {
+			t.Errorf("trial %d: rotation differs from closed form by %.3g rad", trial, a)
+		}
+		if d := r3.Norm(r3.Sub(res.Pose.T, ref.T)); d > 1e-6 {
+			t.Errorf("trial %d: translation differs from closed form by %.3g m", trial, d)
+		}
+		if !res.Converged || res.RMS > 1e-6 {
+			t.Errorf("trial %d: converged=%v rms=%v after %d iterations", trial, res.Converged, res.RMS, res.Iterations)
+		}
+	}
+}
+
+// TestSymmetricResidualOnSphere checks the property the symmetric
+// objective is built on (Rusinkiewicz 2019, §3): two points p, q of a
+// sphere of radius ρ with their radial normals have (p − q)·(n_p + n_q)
+// = (|p−c|² − |q−c|²)/ρ = 0, while the destination plane alone leaves
+// (p − q)·n_q = −|p − q|²/(2ρ) (chord geometry: |p − q|² = 2ρ²(1 − cos θ)
+// and (p − q)·n_q = ρ(cos θ − 1)).
+func TestSymmetricResidualOnSphere(t *testing.T) {
+	rng := rand.New(rand.NewPCG(17, 18))
+	for trial := 0; trial < 20; trial++ {
+		rho := 0.005 + 0.05*rng.Float64()
+		c := r3.Vec{X: rng.Float64() - 0.5, Y: rng.Float64() - 0.5, Z: rng.Float64()}
+		np := r3.Unit(r3.Vec{X: rng.NormFloat64(), Y: rng.NormFloat64(), Z: rng.NormFloat64()})
+		nq := r3.Unit(r3.Add(np, r3.Scale(0.3, r3.Vec{X: rng.NormFloat64(), Y: rng.NormFloat64(), Z: rng.NormFloat64()})))
+		p, q := r3.Add(c, r3.Scale(rho, np)), r3.Add(c, r3.Scale(rho, nq))
+		var sym, plain PlaneSystem
+		sym.AddSymmetric(p, q, np, nq, 1)
+		plain.Add(p, q, nq, 1)
+		d2 := r3.Norm2(r3.Sub(p, q))
+		want := d2 / (2 * rho)
+		// Rounding: the coordinates are of order 1 m, so 1e-15 relative.
+		if r := sym.RMS(); r > 1e-13 {
+			t.Errorf("trial %d: symmetric residual %.3g m, want 0", trial, r)
+		}
+		if r := plain.RMS(); math.Abs(r-want) > 1e-12+1e-9*want {
+			t.Errorf("trial %d: destination-plane residual %.6g m, want %.6g", trial, r, want)
+		}
+	}
+}
+
+// TestAddSymmetricLinearisation compares the residual of a pair after a
+// small motion (p and its normal turned by ω and moved by t, exactly)
+// with the first-order prediction r + J·(ω, t) that AddSymmetric's
+// normal equations encode: the difference must shrink as the square of
+// the motion (common practice for checking a derivative).
+func TestAddSymmetricLinearisation(t *testing.T) {
+	rng := rand.New(rand.NewPCG(19, 20))
+	resid := func(p, q, np, nq r3.Vec) float64 {
+		n := r3.Add(np, nq)
+		return r3.Dot(r3.Sub(p, q), n) / r3.Norm(n)
+	}
+	for trial := 0; trial < 20; trial++ {
+		rv := func() r3.Vec { return r3.Vec{X: rng.NormFloat64(), Y: rng.NormFloat64(), Z: rng.NormFloat64()} }
+		p, q := rv(), rv()
+		np := r3.Unit(rv())
+		nq := r3.Unit(r3.Add(np, r3.Scale(0.5, rv())))
+		omega, tr := rv(), rv()
+		var prevErr float64
+		for k, h := range []float64{1e-3, 1e-4} {
+			w, dt := r3.Scale(h, omega), r3.Scale(h, tr)
+			rot := RotationFromAxisAngle(w, r3.Norm(w))
+			exact := resid(r3.Add(rot.MulVec(p), dt), q, rot.MulVec(np), nq)
+			// The one-pair system holds JᵀJ and Jᵀr: with J·x and r
+			// recovered from them by a unit weight, r + J·x follows.
+			var s PlaneSystem
+			s.AddSymmetric(p, q, np, nq, 1)
+			r0 := resid(p, q, np, nq)
+			x := [6]float64{w.X, w.Y, w.Z, dt.X, dt.Y, dt.Z}
+			var jx float64
+			for u := 0; u < 6; u++ {
+				jx += s.b[u] / r0 * x[u] // Jᵀr / r = J for one pair
+			}
+			e := math.Abs(exact - (r0 + jx))
+			if k == 1 && !(e < prevErr/50) {
+				t.Errorf("trial %d: first-order error %.3g at h=1e-4 against %.3g at h=1e-3: not quadratic", trial, e, prevErr)
+			}
+			prevErr = e
+		}
+	}
+}
+
 func TestICPErrors(t *testing.T) {
 	rng := rand.New(rand.NewPCG(7, 8))
 	dst := boxSurfaceCloud(rng, 300, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
@@ -237,6 +348,12 @@ func TestICPErrors(t *testing.T) {
 	if _, err := ICPPointToPlane(plane, plane, bruteNearest(plane.Points), Identity(), DefaultICPOptions()); !errors.Is(err, ErrDegenerate) {
 		t.Errorf("plane: err = %v, want ErrDegenerate", err)
 	}
+	// The symmetric objective needs the source's normals.
+	sym := DefaultICPOptions()
+	sym.Symmetric = true
+	if _, err := ICPPointToPlane(noNormals, dst, bruteNearest(dst.Points), Identity(), sym); err == nil {
+		t.Error("symmetric without source normals: want an error")
+	}
 	// Far away: no pairs.
 	far := dst.Transform(PoseFromAxisAngle(r3.Vec{Z: 1}, 0, r3.Vec{X: 1}))
 	if _, err := ICPPointToPlane(far, dst, bruteNearest(dst.Points), Identity(), DefaultICPOptions()); !errors.Is(err, ErrDegenerate) {
@@ -253,6 +370,28 @@ func BenchmarkICPPointToPlane(b *testing.B) {
 	src = src.Transform(PoseFromAxisAngle(r3.Vec{X: 1, Y: 2, Z: 3}, 3*math.Pi/180, r3.Vec{X: 0.002, Y: -0.001}))
 	tree := NewKDTree(dst.Points)
 	opt := DefaultICPOptions()
+	b.ResetTimer()
+	var res ICPResult
+	for i := 0; i < b.N; i++ {
+		var err error
+		res, err = ICPPointToPlane(src, dst, tree, Identity(), opt)
+		if err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(res.Iterations), "iterations")
+}
+
+// BenchmarkICPSymmetric is BenchmarkICPPointToPlane with the symmetric
+// objective (ICPOptions.Symmetric).
+func BenchmarkICPSymmetric(b *testing.B) {
+	rng := rand.New(rand.NewPCG(9, 10))
+	dst := boxSurfaceCloud(rng, 5000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
+	src := boxSurfaceCloud(rng, 2000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
+	src = src.Transform(PoseFromAxisAngle(r3.Vec{X: 1, Y: 2, Z: 3}, 3*math.Pi/180, r3.Vec{X: 0.002, Y: -0.001}))
+	tree := NewKDTree(dst.Points)
+	opt := DefaultICPOptions()
+	opt.Symmetric = true
 	b.ResetTimer()
 	var res ICPResult
 	for i := 0; i < b.N; i++ {
