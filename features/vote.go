@@ -53,7 +53,10 @@ type VoteOptions struct {
 	MaxHypotheses int
 	// Refine runs point-to-plane ICP (mesh.ICPPointToPlane) of the model
 	// cloud against RefineScene (the scene when nil) from every returned
-	// hypothesis.
+	// hypothesis: a coarse stage with the ICP options, then a fine one
+	// with close pairs only, measured along the sum of the model's and
+	// the scene's normals (the symmetric objective; see fineDistance in
+	// vote.go), so the model's normals should be accurate.
 	// DEFAULT: true
 	Refine bool
 	// RefineScene is the cloud ICP aligns to, with normals: typically
