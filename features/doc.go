@@ -58,7 +58,10 @@
 //
 // Refinement is point-to-plane ICP built on mesh.PlaneSystem with the
 // pair rules of mesh.ICPPointToPlane, in two stages (a coarse one from
-// the voted pose, then one on close pairs with near-parallel normals),
+// the voted pose, then one on close pairs measured along the sum of the
+// model's and the scene's normals, the symmetric objective of
+// Rusinkiewicz 2019, DOI 10.1145/3306346.3323037, since a depth image's
+// normals are blurred across creases and thin faces),
 // centred on the model and damped, because a single view often leaves a
 // direction unconstrained (two visible planes let the part slide along
 // their common line) and an undamped solve then refuses the step.
