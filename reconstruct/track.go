@@ -50,6 +50,18 @@ type TrackOptions struct {
 	// near the motion model's prediction instead of drifting with noise.
 	// DEFAULT: 0.001
 	Damping float64
+	// ColorSigma, when > 0, adds a colour term to tracking
+	// (TrackColor): the new frame's luminance against a keyframe's, with
+	// a residual of ColorSigma (8-bit levels) weighing like one of the
+	// axial depth noise at 0.5 m. Sideways motions over a flat, textured
+	// table move little depth but much colour. 0 turns it off.
+	// DEFAULT: 0 in DefaultTrackOptions; DefaultFuseOptions sets 3 for
+	// the handheld rig
+	ColorSigma float64
+	// KeyframeOverlap: when fewer of a placed frame's pixels than this
+	// share pair with the keyframe, that frame becomes the keyframe.
+	// DEFAULT: 0.6
+	KeyframeOverlap float64
 	// Workers bounds the goroutines; 0 means all cores.
 	// DEFAULT: 0
 	Workers int
@@ -58,15 +70,16 @@ type TrackOptions struct {
 // DefaultTrackOptions returns the documented defaults.
 func DefaultTrackOptions() TrackOptions {
 	return TrackOptions{
-		Iterations:     [pyramidLevels]int{6, 5, 4},
-		MaxDistance:    [pyramidLevels]float64{0.01, 0.02, 0.04},
-		MaxNormalAngle: 30 * math.Pi / 180,
-		ModelScale:     2,
-		MinInlierRatio: 0.3,
-		MaxRMS:         0.006,
-		MaxShift:       0.08,
-		MaxTurn:        20 * math.Pi / 180,
-		Damping:        1e-3,
+		Iterations:      [pyramidLevels]int{6, 5, 4},
+		MaxDistance:     [pyramidLevels]float64{0.01, 0.02, 0.04},
+		MaxNormalAngle:  30 * math.Pi / 180,
+		ModelScale:      2,
+		MinInlierRatio:  0.3,
+		MaxRMS:          0.006,
+		MaxShift:        0.08,
+		MaxTurn:         20 * math.Pi / 180,
+		Damping:         1e-3,
+		KeyframeOverlap: 0.6,
 	}
 }
 
@@ -77,7 +90,10 @@ type TrackResult struct {
 	Reason      string // why it was lost
 	RMS         float64
 	InlierRatio float64
-	Pairs       int
+	// KeyOverlap is the share of the frame's pixels with depth that
+	// paired with the keyframe's colour (TrackColor; 0 without one).
+	KeyOverlap float64
+	Pairs      int
 }
 
 // level is one pyramid level of the incoming frame: camera-frame vertex
@@ -174,6 +190,10 @@ type Tracker struct {
 	hasModel  bool
 	parts     []mesh.PlaneSystem
 	cands     []int
+	// colour term: the keyframe and the new frame's luminance pyramid
+	key    *keyframe
+	hasKey bool
+	lum    [pyramidLevels][]float32
 }
 
 // NewTracker returns a tracker over vol for frames of intrinsics intr.
@@ -189,6 +209,7 @@ func NewTracker(vol *Volume, intr mesh.Intrinsics, opt TrackOptions) (*Tracker, 
 		li := intr.Scaled(1 << l)
 		n := li.Width * li.Height
 		t.levels[l] = level{intr: li, depth: make([]float32, n), vert: make([]r3.Vec, n), norm: make([]r3.Vec, n), bin: make([]uint8, n)}
+		t.lum[l] = make([]float32, n)
 	}
 	return t, nil
 }
@@ -210,6 +231,14 @@ func (t *Tracker) UpdateModel(ctx context.Context, camToWorld mesh.Pose) {
 // the model holds (a turntable's part, which turns while the rest of the
 // scene stands still); the inlier ratio is then over the masked pixels.
 func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predicted mesh.Pose) (TrackResult, error) {
+	return t.TrackColor(ctx, depth, nil, mask, predicted)
+}
+
+// TrackColor is Track with the frame's luminance (Luminance's layout):
+// when ColorSigma > 0 and a keyframe is set (SetKeyframe), each step
+// also aligns the frame's colour with the keyframe's. TrackResult's
+// KeyOverlap then tells when to set a new keyframe.
+func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []bool, predicted mesh.Pose) (TrackResult, error) {
 	if !t.hasModel {
 		return TrackResult{}, fmt.Errorf("reconstruct: Track before UpdateModel")
 	}
@@ -219,7 +248,19 @@ func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predi
 	if mask != nil && len(mask) != len(depth) {
 		return TrackResult{}, fmt.Errorf("reconstruct: mask has %d pixels for %d", len(mask), len(depth))
 	}
+	if lum != nil && len(lum) != len(depth) {
+		return TrackResult{}, fmt.Errorf("reconstruct: luminance has %d pixels for %d", len(lum), len(depth))
+	}
 	t.buildPyramid(depth, mask)
+	colour := lum != nil && t.hasKey && t.opt.ColorSigma > 0
+	if colour {
+		copy(t.lum[0], lum)
+		for l := 1; l < pyramidLevels; l++ {
+			src := &t.levels[l-1]
+			downLuminance(t.lum[l-1], src.depth, src.intr.Width, src.intr.Height, t.lum[l])
+		}
+	}
+	gain := [2]float64{1, 0}
 	pose := predicted
 	res := TrackResult{CamToWorld: predicted}
 	cosMax := math.Cos(t.opt.MaxNormalAngle)
@@ -235,6 +276,10 @@ func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predi
 				return res, err
 			}
 			sys, _ := t.associate(lv, pose, worldToModel, t.opt.MaxDistance[l], cosMax, step)
+			if colour {
+				sums, _ := t.photometric(&sys, l, pose, step, gain)
+				gain = fitGain(sums)
+			}
 			if sys.Pairs < 30 {
 				res.Lost, res.Reason = true, fmt.Sprintf("only %d pixel pairs at pyramid level %d", sys.Pairs, l)
 				return res, nil
@@ -258,6 +303,10 @@ func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predi
 	// (pixels beyond the model, such as a far wall the volume does not
 	// hold, say nothing either way).
 	res.InlierRatio = float64(sys.Pairs) / math.Max(1, float64(cands))
+	if colour {
+		var dummy mesh.PlaneSystem
+		_, res.KeyOverlap = t.photometric(&dummy, 0, pose, 4, gain)
+	}
 	moved := predicted.Inv().Mul(pose)
 	_, turn := moved.AxisAngle()
 	switch {
@@ -357,36 +406,7 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 	}
 	for l := 1; l < pyramidLevels; l++ {
 		src, dst := &t.levels[l-1], &t.levels[l]
-		sw := src.intr.Width
-		for y := 0; y < dst.intr.Height; y++ {
-			for x := 0; x < dst.intr.Width; x++ {
-				var zs [4]float32
-				near := float32(math.Inf(1))
-				for k := 0; k < 4; k++ {
-					z := src.depth[(2*y+k/2)*sw+2*x+k%2]
-					zs[k] = z
-					if z > 0 && z < near {
-						near = z
-					}
-				}
-				var sum float32
-				cnt := 0
-				if !math.IsInf(float64(near), 1) {
-					limit := 3 * float32(axialSigma(float64(near), 0))
-					for _, z := range zs {
-						if z > 0 && z-near <= limit {
-							sum += z
-							cnt++
-						}
-					}
-				}
-				if cnt > 0 {
-					dst.depth[y*dst.intr.Width+x] = sum / float32(cnt)
-				} else {
-					dst.depth[y*dst.intr.Width+x] = 0
-				}
-			}
-		}
+		t.downDepth(src.depth, src.intr.Width, dst.depth, dst.intr.Width, dst.intr.Height)
 	}
 	for l := range t.levels {
 		lv := &t.levels[l]
@@ -394,6 +414,41 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 		// distances: adjacent pixels of the full image are too noisy.
 		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, max(1, 3>>l))
 		lv.equaliseNormals()
+	}
+}
+
+// downDepth halves a depth image: each coarser depth averages the
+// valid pixels of a 2×2 block that lie within 3σ_z of the block's
+// nearest one (so edges are not blurred across a depth jump).
+func (t *Tracker) downDepth(src []float32, sw int, dst []float32, dw, dh int) {
+	for y := 0; y < dh; y++ {
+		for x := 0; x < dw; x++ {
+			var zs [4]float32
+			near := float32(math.Inf(1))
+			for k := 0; k < 4; k++ {
+				z := src[(2*y+k/2)*sw+2*x+k%2]
+				zs[k] = z
+				if z > 0 && z < near {
+					near = z
+				}
+			}
+			var sum float32
+			cnt := 0
+			if !math.IsInf(float64(near), 1) {
+				limit := 3 * float32(axialSigma(float64(near), 0))
+				for _, z := range zs {
+					if z > 0 && z-near <= limit {
+						sum += z
+						cnt++
+					}
+				}
+			}
+			if cnt > 0 {
+				dst[y*dw+x] = sum / float32(cnt)
+			} else {
+				dst[y*dw+x] = 0
+			}
+		}
 	}
 }
 

@@ -1,0 +1,239 @@
+package reconstruct
+
+import (
+	"image"
+	"math"
+
+	"gonum.org/v1/gonum/spatial/r3"
+
+	"github.com/scanfold/scanfold/internal/par"
+	"github.com/scanfold/scanfold/mesh"
+)
+
+// Luminance writes the Rec. 601 luminance of img (0–255) into dst,
+// row-major, and returns it; dst is reused when it has the right size.
+func Luminance(img *image.NRGBA, dst []float32) []float32 {
+	w, h := img.Rect.Dx(), img.Rect.Dy()
+	if len(dst) != w*h {
+		dst = make([]float32, w*h)
+	}
+	for y := 0; y < h; y++ {
+		row := img.Pix[(y)*img.Stride : (y)*img.Stride+4*w]
+		for x := 0; x < w; x++ {
+			p := row[4*x : 4*x+3 : 4*x+3]
+			dst[y*w+x] = 0.299*float32(p[0]) + 0.587*float32(p[1]) + 0.114*float32(p[2])
+		}
+	}
+	return dst
+}
+
+// keyframe is the view the tracker's colour term aligns each new frame
+// with: its pose and, per pyramid level, its luminance, depth and the
+// luminance's gradient.
+type keyframe struct {
+	camToWorld mesh.Pose
+	levels     [pyramidLevels]keyLevel
+}
+
+type keyLevel struct {
+	intr     mesh.Intrinsics
+	lum      []float32
+	depth    []float32
+	gx, gy   []float32
+	hasGrads []bool
+}
+
+// downLuminance halves a luminance image over the pixels whose depth
+// the depth pyramid kept (depth of the coarser level > 0), averaging
+// the 2×2 block's pixels with depth.
+func downLuminance(src []float32, srcDepth []float32, sw, sh int, dst []float32) {
+	dw, dh := sw/2, sh/2
+	for y := 0; y < dh; y++ {
+		for x := 0; x < dw; x++ {
+			var s float32
+			n := 0
+			for k := 0; k < 4; k++ {
+				i := (2*y+k/2)*sw + 2*x + k%2
+				if srcDepth[i] > 0 {
+					s += src[i]
+					n++
+				}
+			}
+			if n > 0 {
+				dst[y*dw+x] = s / float32(n)
+			} else {
+				dst[y*dw+x] = 0
+			}
+		}
+	}
+}
+
+// SetKeyframe makes the frame (its luminance, Luminance's layout, and
+// depth) placed at camToWorld the one the colour term aligns new frames
+// with.
+func (t *Tracker) SetKeyframe(lum, depth []float32, camToWorld mesh.Pose) {
+	if t.key == nil {
+		t.key = &keyframe{}
+		for l := 0; l < pyramidLevels; l++ {
+			li := t.intr.Scaled(1 << l)
+			n := li.Width * li.Height
+			t.key.levels[l] = keyLevel{intr: li, lum: make([]float32, n), depth: make([]float32, n), gx: make([]float32, n), gy: make([]float32, n), hasGrads: make([]bool, n)}
+		}
+	}
+	k := t.key
+	k.camToWorld = camToWorld
+	copy(k.levels[0].depth, depth)
+	copy(k.levels[0].lum, lum)
+	for l := 1; l < pyramidLevels; l++ {
+		src, dst := &k.levels[l-1], &k.levels[l]
+		t.downDepth(src.depth, src.intr.Width, dst.depth, dst.intr.Width, dst.intr.Height)
+		downLuminance(src.lum, src.depth, src.intr.Width, src.intr.Height, dst.lum)
+	}
+	for l := range k.levels {
+		kl := &k.levels[l]
+		w, h := kl.intr.Width, kl.intr.Height
+		for y := 0; y < h; y++ {
+			for x := 0; x < w; x++ {
+				i := y*w + x
+				kl.hasGrads[i] = false
+				if x == 0 || y == 0 || x == w-1 || y == h-1 {
+					continue
+				}
+				if kl.depth[i] <= 0 || kl.depth[i-1] <= 0 || kl.depth[i+1] <= 0 || kl.depth[i-w] <= 0 || kl.depth[i+w] <= 0 {
+					continue
+				}
+				kl.gx[i] = (kl.lum[i+1] - kl.lum[i-1]) / 2
+				kl.gy[i] = (kl.lum[i+w] - kl.lum[i-w]) / 2
+				kl.hasGrads[i] = true
+			}
+		}
+	}
+	t.hasKey = true
+}
+
+// photometric adds the colour term of level l to sys: every step-th
+// pixel of the new frame with depth, moved by camToWorld into the
+// keyframe, is compared with the keyframe's luminance there (bilinear,
+// with its gradient), after an affine gain a·I + b fitted to the
+// previous iteration's pairs takes out the frame's exposure and light
+// changes. The residual a·I_key(π(p)) + b − I_new is linearised in the
+// point's motion through the keyframe's projection (direct RGB-D
+// alignment: Steinbrücker, Sturm & Cremers 2011, "Real-time visual
+// odometry from dense RGB-D images", ICCV Workshops, DOI
+// 10.1109/ICCVW.2011.6130321), weighted so that a residual of
+// ColorSigma counts like a depth residual of the reference axial noise,
+// with Huber weights beyond 2·ColorSigma (occlusions, highlights). It
+// returns the sums of the pairs' luminances for the next gain fit and
+// the share of the candidates that paired.
+func (t *Tracker) photometric(sys *mesh.PlaneSystem, l int, camToWorld mesh.Pose, step int, gain [2]float64) (gainSums [5]float64, overlap float64) {
+	lv := &t.levels[l]
+	kl := &t.key.levels[l]
+	lum := t.lum[l]
+	rows := (lv.intr.Height + step - 1) / step
+	const rowsPerPart = 8
+	nParts := (rows + rowsPerPart - 1) / rowsPerPart
+	type part struct {
+		sys        mesh.PlaneSystem
+		sums       [5]float64
+		cand, pair int
+	}
+	parts := make([]part, nParts)
+	camToKey := t.key.camToWorld.Inv().Mul(camToWorld)
+	keyR := t.key.camToWorld.R
+	ki := kl.intr
+	refSigma := axialSigma(0.5, 0)
+	sigma := t.opt.ColorSigma
+	w0 := refSigma * refSigma / (sigma * sigma)
+	huber := 2 * sigma
+	a, b := gain[0], gain[1]
+	par.For(nParts, t.opt.Workers, func(k int) {
+		pt := &parts[k]
+		for r := k * rowsPerPart; r < min((k+1)*rowsPerPart, rows); r++ {
+			y := r * step
+			for x := 0; x < lv.intr.Width; x += step {
+				i := y*lv.intr.Width + x
+				if lv.depth[i] <= 0 {
+					continue
+				}
+				pk := camToKey.Apply(lv.vert[i])
+				if pk.Z <= 0 {
+					continue
+				}
+				pt.cand++
+				uf := ki.Fx*pk.X/pk.Z + ki.Cx
+				vf := ki.Fy*pk.Y/pk.Z + ki.Cy
+				if !(uf >= 1 && vf >= 1) {
+					continue
+				}
+				x0, y0 := int(uf), int(vf)
+				if x0+2 >= ki.Width || y0+2 >= ki.Height {
+					continue
+				}
+				j := y0*ki.Width + x0
+				if !kl.hasGrads[j] || !kl.hasGrads[j+1] || !kl.hasGrads[j+ki.Width] || !kl.hasGrads[j+ki.Width+1] {
+					continue
+				}
+				// Occlusion: the keyframe saw something else, nearer.
+				zk := kl.depth[j]
+				if math.Abs(float64(zk)-pk.Z) > math.Max(0.01, 4*axialSigma(pk.Z, 0)) {
+					continue
+				}
+				tx, ty := float32(uf-float64(x0)), float32(vf-float64(y0))
+				bil := func(img []float32) float64 {
+					top := img[j]*(1-tx) + img[j+1]*tx
+					bot := img[j+ki.Width]*(1-tx) + img[j+ki.Width+1]*tx
+					return float64(top*(1-ty) + bot*ty)
+				}
+				ik, gx, gy := bil(kl.lum), bil(kl.gx), bil(kl.gy)
+				in := float64(lum[i])
+				res := a*ik + b - in
+				pt.sums[0] += ik
+				pt.sums[1] += in
+				pt.sums[2] += ik * ik
+				pt.sums[3] += ik * in
+				pt.sums[4]++
+				pt.pair++
+				// ∂r/∂p in the keyframe's camera, then in the world.
+				iz := 1 / pk.Z
+				gk := r3.Vec{
+					X: a * gx * ki.Fx * iz,
+					Y: a * gy * ki.Fy * iz,
+					Z: -a * (gx*ki.Fx*pk.X + gy*ki.Fy*pk.Y) * iz * iz,
+				}
+				w := w0
+				if ar := math.Abs(res); ar > huber {
+					w *= huber / ar
+				}
+				pt.sys.AddGradient(camToWorld.Apply(lv.vert[i]), keyR.MulVec(gk), res, w)
+			}
+		}
+	})
+	cand, pair := 0, 0
+	for k := range parts {
+		sys.Merge(&parts[k].sys)
+		for m := range gainSums {
+			gainSums[m] += parts[k].sums[m]
+		}
+		cand += parts[k].cand
+		pair += parts[k].pair
+	}
+	return gainSums, float64(pair) / math.Max(1, float64(cand))
+}
+
+// fitGain fits I_new ≈ a·I_key + b to the sums photometric returns,
+// keeping a within 0.5–2 (a wild fit on a few pairs is ignored).
+func fitGain(s [5]float64) [2]float64 {
+	n := s[4]
+	if n < 100 {
+		return [2]float64{1, 0}
+	}
+	vx := s[2] - s[0]*s[0]/n
+	if !(vx > 0) {
+		return [2]float64{1, 0}
+	}
+	a := (s[3] - s[0]*s[1]/n) / vx
+	if !(a >= 0.5 && a <= 2) {
+		return [2]float64{1, 0}
+	}
+	return [2]float64{a, (s[1] - a*s[0]) / n}
+}
