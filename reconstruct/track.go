@@ -277,14 +277,7 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 			}
 			sys, _ := t.associate(lv, pose, worldToModel, t.opt.MaxDistance[l], cosMax, step)
 			if colour {
-				// Colour pairs on every fourth pixel of the full image:
-				// every second doubled the tracker's time for no gain in
-				// accuracy on the demo sweeps.
-				pstep := step
-				if l == 0 {
-					pstep = 2 * step
-				}
-				sums, _ := t.photometric(&sys, l, pose, pstep, gain)
+				sums, _ := t.photometric(&sys, l, pose, step, gain)
 				gain = fitGain(sums)
 			}
 			if sys.Pairs < 30 {
