@@ -469,7 +469,8 @@ func handheldFrames(b *testing.B) *handheldData {
 
 // BenchmarkHandheldLoop times the per-frame work of Fuse's handheld
 // loop on decoded frames: track the frame against the scene volume's
-// raycast (predicted from the previous frame's true pose), weights and
+// raycast and its colour against the keyframe's (predicted from the
+// previous frame's true pose), weights and
 // mask, integrate the part volume (2 mm) and the scene volume (4 mm),
 // and raycast the model for the next frame. Frames are integrated at
 // their true poses, so the figure does not depend on whether tracking
@@ -504,15 +505,19 @@ func BenchmarkHandheldLoop(b *testing.B) {
 		}
 		f = &fuser{opt: opt, roi: d.roi, part: part}
 		tracked = 0
+		var lum []float32
 		for k, fr := range d.frames {
+			lum = Luminance(fr.Color, lum)
+			newKey := k == 0
 			if k > 0 {
-				res, err := tr.Track(ctx, fr.Depth, nil, d.truth[k-1])
+				res, err := tr.TrackColor(ctx, fr.Depth, lum, nil, d.truth[k-1])
 				if err != nil {
 					b.Fatal(err)
 				}
 				if !res.Lost {
 					tracked++
 				}
+				newKey = res.KeyOverlap < opt.Track.KeyframeOverlap
 			}
 			pose := d.truth[k]
 			f.alloc = f.mask(fr, pose, f.alloc)
@@ -527,6 +532,9 @@ func BenchmarkHandheldLoop(b *testing.B) {
 				b.Fatal(err)
 			}
 			tr.UpdateModel(ctx, pose)
+			if newKey {
+				tr.SetKeyframe(lum, fr.Depth, pose)
+			}
 		}
 	}
 	b.StopTimer()
