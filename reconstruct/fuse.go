@@ -244,9 +244,11 @@ var ErrDepthScale = errors.New("depth scale does not fit a part scan")
 
 // Fuse turns a sweep into the part's coloured, cleaned mesh: it finds
 // the support and the part in the first usable frame, places every
-// frame (turntable: the plate angle about a calibrated or estimated
-// axis, refined by ICP against the model so far; handheld: the given
-// poses, or frame-to-model tracking), integrates the region of interest
+// frame (turntable: the plate angle about a calibrated axis, or one
+// estimated from the plate's plane, pairs of views and the plate's
+// texture, optionally refined by ICP against the model so far;
+// handheld: the given poses, or frame-to-model tracking of depth and
+// colour), integrates the region of interest
 // into a sparse TSDF, extracts the zero level set by marching cubes,
 // removes the support surface and floaters, and keeps the part.
 func Fuse(ctx context.Context, sw *Sweep, opt FuseOptions) (*FuseResult, error) {
