@@ -178,83 +178,52 @@ func boxSurfaceCloud(rng *rand.Rand, n int, size r3.Vec) *Cloud {
 }
 
 // TestICPMatchesClosedForm moves a cloud by a known small rigid motion
-// and checks that point-to-plane ICP (from the identity) lands on the
-// same pose as the closed-form Umeyama (1991) solution on the true
+// and checks that ICP (from the identity), with the point-to-plane
+// objective and with the symmetric one (Rusinkiewicz 2019), lands on
+// the same pose as the closed-form Umeyama (1991) solution on the true
 // correspondences, computed by gonum's spatial/transform.
 func TestICPMatchesClosedForm(t *testing.T) {
-	rng := rand.New(rand.NewPCG(5, 6))
-	dst := boxSurfaceCloud(rng, 3000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
-	for trial := 0; trial < 5; trial++ {
-		truth := randomPose(rng, 5*math.Pi/180, 0.003) // src → dst
-		inv := truth.Inv()
-		src := dst.Transform(inv)
-		opt := DefaultICPOptions()
-		res, err := ICPPointToPlane(src, dst, bruteNearest(dst.Points), Identity(), opt)
-		if err != nil {
-			t.Fatal(err)
-		}
-		_, gr, gt, err := transform.UmeyamaTransform(toDense(src.Points), toDense(dst.Points))
-		if err != nil {
-			t.Fatal(err)
-		}
-		ref := Pose{T: r3.Vec{X: gt.AtVec(0), Y: gt.AtVec(1), Z: gt.AtVec(2)}}
-		for a := 0; a < 3; a++ {
-			for b := 0; b < 3; b++ {
-				ref.R[a][b] = gr.At(a, b)
+	for _, tc := range []struct {
+		name      string
+		symmetric bool
+		seed      uint64
+	}{{"point-to-plane", false, 5}, {"symmetric", true, 15}} {
+		t.Run(tc.name, func(t *testing.T) {
+			rng := rand.New(rand.NewPCG(tc.seed, tc.seed+1))
+			dst := boxSurfaceCloud(rng, 3000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
+			for trial := 0; trial < 5; trial++ {
+				truth := randomPose(rng, 5*math.Pi/180, 0.003) // src → dst
+				src := dst.Transform(truth.Inv())
+				opt := DefaultICPOptions()
+				opt.Symmetric = tc.symmetric
+				res, err := ICPPointToPlane(src, dst, bruteNearest(dst.Points), Identity(), opt)
+				if err != nil {
+					t.Fatal(err)
+				}
+				_, gr, gt, err := transform.UmeyamaTransform(toDense(src.Points), toDense(dst.Points))
+				if err != nil {
+					t.Fatal(err)
+				}
+				ref := Pose{T: r3.Vec{X: gt.AtVec(0), Y: gt.AtVec(1), Z: gt.AtVec(2)}}
+				for a := 0; a < 3; a++ {
+					for b := 0; b < 3; b++ {
+						ref.R[a][b] = gr.At(a, b)
+					}
+				}
+				// Noise-free data: ICP converges to the exact pose; the
+				// residual left is the stop threshold (1e-6 rad, 1e-7 m)
+				// plus rounding.
+				if a := RotationAngle(res.Pose, ref); a > 1e-5 {
+					t.Errorf("trial %d: rotation differs from closed form by %.3g rad", trial, a)
+				}
+				if d := r3.Norm(r3.Sub(res.Pose.T, ref.T)); d > 1e-6 {
+					t.Errorf("trial %d: translation differs from closed form by %.3g m", trial, d)
+				}
+				if !res.Converged || res.RMS > 1e-6 {
+					t.Errorf("trial %d: converged=%v rms=%v after %d iterations", trial, res.Converged, res.RMS, res.Iterations)
+				}
 			}
-		}
-		// Noise-free data: ICP converges to the exact pose; the residual
-		// left is the stop threshold (1e-6 rad, 1e-7 m) plus rounding.
-		if a := RotationAngle(res.Pose, ref); a > 1e-5 {
-			t.Errorf("trial %d: rotation differs from closed form by %.3g rad", trial, a)
-		}
-		if d := r3.Norm(r3.Sub(res.Pose.T, ref.T)); d > 1e-6 {
-			t.Errorf("trial %d: translation differs from closed form by %.3g m", trial, d)
-		}
-		if !res.Converged || res.RMS > 1e-6 {
-			t.Errorf("trial %d: converged=%v rms=%v after %d iterations", trial, res.Converged, res.RMS, res.Iterations)
-		}
-	}
-}
-
-// TestICPSymmetricMatchesClosedForm is TestICPMatchesClosedForm with
-// the symmetric objective (Rusinkiewicz 2019): on noise-free data with
-// exact normals it must land on the same pose as the closed-form
-// Umeyama (1991) solution on the true correspondences (gonum's
-// spatial/transform).
-func TestICPSymmetricMatchesClosedForm(t *testing.T) {
-	rng := rand.New(rand.NewPCG(15, 16))
-	dst := boxSurfaceCloud(rng, 3000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
-	for trial := 0; trial < 5; trial++ {
-		truth := randomPose(rng, 5*math.Pi/180, 0.003) // src → dst
-		src := dst.Transform(truth.Inv())
-		opt := DefaultICPOptions()
-		opt.Symmetric = true
-		res, err := ICPPointToPlane(src, dst, NewKDTree(dst.Points), Identity(), opt)
-		if err != nil {
-			t.Fatal(err)
-		}
-		_, gr, gt, err := transform.UmeyamaTransform(toDense(src.Points), toDense(dst.Points))
-		if err != nil {
-			t.Fatal(err)
-		}
-		ref := Pose{T: r3.Vec{X: gt.AtVec(0), Y: gt.AtVec(1), Z: gt.AtVec(2)}}
-		for a := 0; a < 3; a++ {
-			for b := 0; b < 3; b++ {
-				ref.R[a][b] = gr.At(a, b)
-			}
-		}
-		// Tolerances as in TestICPMatchesClosedForm: the stop thresholds
-		// (1e-6 rad, 1e-7 m) plus rounding.
-		if a := RotationAngle(res.Pose, ref); a > 1e-5 {
-			t.Errorf("trial %d: rotation differs from closed form by %.3g rad", trial, a)
-		}
-		if d := r3.Norm(r3.Sub(res.Pose.T, ref.T)); d > 1e-6 {
-			t.Errorf("trial %d: translation differs from closed form by %.3g m", trial, d)
-		}
-		if !res.Converged || res.RMS > 1e-6 {
-			t.Errorf("trial %d: converged=%v rms=%v after %d iterations", trial, res.Converged, res.RMS, res.Iterations)
-		}
+		})
 	}
 }
 

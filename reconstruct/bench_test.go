@@ -469,8 +469,8 @@ func handheldFrames(b *testing.B) *handheldData {
 
 // BenchmarkHandheldLoop times the per-frame work of Fuse's handheld
 // loop on decoded frames: track the frame against the scene volume's
-// raycast and its colour against the keyframe's (predicted from the
-// previous frame's true pose), weights and
+// raycast and its colour against the keyframe's (predicted at constant
+// velocity from the two previous true poses), weights and
 // mask, integrate the part volume (2 mm) and the scene volume (4 mm),
 // and raycast the model for the next frame. Frames are integrated at
 // their true poses, so the figure does not depend on whether tracking
@@ -510,7 +510,11 @@ func BenchmarkHandheldLoop(b *testing.B) {
 			lum = Luminance(fr.Color, lum)
 			newKey := k == 0
 			if k > 0 {
-				res, err := tr.TrackColor(ctx, fr.Depth, lum, nil, d.truth[k-1])
+				pred := d.truth[k-1]
+				if k > 1 {
+					pred = pred.Mul(d.truth[k-2].Inv().Mul(pred)) // constant velocity, as Fuse predicts
+				}
+				res, err := tr.TrackColor(ctx, fr.Depth, lum, nil, pred)
 				if err != nil {
 					b.Fatal(err)
 				}

@@ -143,13 +143,6 @@ func DefaultFuseOptions() FuseOptions {
 	}
 }
 
-// A handheld frame tracked farther than this from its prediction is
-// tracked again from the result.
-const (
-	retrackShift = 0.005
-	retrackTurn  = 0.5 * math.Pi / 180
-)
-
 // handheldTrackOptions are DefaultTrackOptions with the colour term on:
 // ColorSigma 3, the standard deviation of the difference of two 8-bit
 // readings each with the sensor model's colour noise of σ = 2 (2·√2 ≈
@@ -842,17 +835,6 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 						return err
 					}
 					continue
-				}
-			}
-			if moved := pred.Inv().Mul(res.CamToWorld); !res.Lost && (r3.Norm(moved.T) > retrackShift || mesh.RotationAngle(moved, mesh.Identity()) > retrackTurn) {
-				// Far from the prediction (the second frame, which has no
-				// motion model, or a sudden move): the pyramid's few
-				// iterations may have stopped short; start again from
-				// where they got.
-				if res2, err := tr.TrackColor(ctx, fr.Depth, lum, nil, res.CamToWorld); err != nil {
-					return err
-				} else if !res2.Lost {
-					res = res2
 				}
 			}
 			prev, pose = pose, res.CamToWorld

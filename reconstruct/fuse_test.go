@@ -79,6 +79,47 @@ func synthSweep(t *testing.T, part string, opt SynthOptions) string {
 	return dir
 }
 
+// fuseSynth renders a synthetic sweep of part, fuses it with fo, and
+// returns the result with the sweep's truth poses and seen surface.
+func fuseSynth(t *testing.T, part string, opt SynthOptions, fo FuseOptions) (*FuseResult, *TruthPoses, *mesh.Mesh) {
+	t.Helper()
+	dir := synthSweep(t, part, opt)
+	sw, err := LoadSweep(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	res, err := Fuse(context.Background(), sw, fo)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tp, err := ReadTruthPoses(filepath.Join(dir, TruthDir, TruthPosesName))
+	if err != nil {
+		t.Fatal(err)
+	}
+	seen, err := mesh.LoadMesh(filepath.Join(dir, TruthDir, TruthSeenName))
+	if err != nil {
+		t.Fatal(err)
+	}
+	return res, tp, seen
+}
+
+// worstCameraError is the largest translation (metres) and rotation
+// (radians) between a frame's placed and true camera pose, over the
+// frames Fuse did not skip.
+func worstCameraError(rep FuseReport, tp *TruthPoses) (dT, dR float64) {
+	skipped := map[int]bool{}
+	for _, s := range rep.Skipped {
+		skipped[s.Frame] = true
+	}
+	for i, p := range rep.CamToWorld {
+		if !skipped[i] {
+			dT = math.Max(dT, r3.Norm(r3.Sub(p.T, tp.CamToWorld[i].T)))
+			dR = math.Max(dR, mesh.RotationAngle(p, tp.CamToWorld[i]))
+		}
+	}
+	return dT, dR
+}
+
 // TestFuseTurntableAgainstTruth fuses a synthetic turntable sweep (24
 // frames at 640×480, with the sensor noise of Nguyen et al. 2012)
 // through the whole pipeline, axis estimated, and measures the mesh
@@ -94,15 +135,7 @@ func TestFuseTurntableAgainstTruth(t *testing.T) {
 	opt := DefaultSynthOptions()
 	opt.Frames = 24
 	opt.Seed = 3
-	dir := synthSweep(t, "bracket", opt)
-	sw, err := LoadSweep(dir)
-	if err != nil {
-		t.Fatal(err)
-	}
-	res, err := Fuse(context.Background(), sw, DefaultFuseOptions())
-	if err != nil {
-		t.Fatal(err)
-	}
+	res, tp, seen := fuseSynth(t, "bracket", opt, DefaultFuseOptions())
 	r := res.Report
 	if r.FramesUsed != 24 || r.AxisSource != "estimated" {
 		t.Errorf("used %d frames, axis %q", r.FramesUsed, r.AxisSource)
@@ -110,19 +143,11 @@ func TestFuseTurntableAgainstTruth(t *testing.T) {
 	// The axis, placed by the plate's texture, against the true one: the
 	// distance between the two lines, measured in the plate's plane.
 	// Tolerance 0.3 mm, under a third of the plate images' 1 mm cell
-	// (sub-cell registration; 21 demo sweeps measured 0.01–0.15 mm).
-	tp, err := ReadTruthPoses(filepath.Join(dir, TruthDir, TruthPosesName))
-	if err != nil {
-		t.Fatal(err)
-	}
+	// (sub-cell registration; 21 demo sweeps measured 0.001–0.102 mm).
 	d := r3.Sub(r.Axis.Point, tp.Axis.Point)
 	d = r3.Sub(d, r3.Scale(r3.Dot(d, tp.Axis.Direction), tp.Axis.Direction))
 	if r.AxisMethod != "plate texture" || r3.Norm(d) > 0.0003 {
 		t.Errorf("axis by %q, %.3f mm from the true axis (want the plate texture, within 0.3 mm)", r.AxisMethod, r3.Norm(d)*1000)
-	}
-	seen, err := mesh.LoadMesh(filepath.Join(dir, TruthDir, TruthSeenName))
-	if err != nil {
-		t.Fatal(err)
 	}
 	mean := meanOf(surfaceDistances(t, res.Mesh, seen, 200000))
 	p, rc, f := fScore(t, res.Mesh, seen, 0.002)
@@ -249,32 +274,12 @@ func TestFuseHandheldAgainstTruth(t *testing.T) {
 	opt.Frames = 120
 	opt.Seed = 11
 	opt.Intrinsics = mesh.DefaultIntrinsics().Scaled(2)
-	dir := synthSweep(t, "valve", opt)
-	sw, err := LoadSweep(dir)
-	if err != nil {
-		t.Fatal(err)
-	}
-	res, err := Fuse(context.Background(), sw, DefaultFuseOptions())
-	if err != nil {
-		t.Fatal(err)
-	}
-	tp, err := ReadTruthPoses(filepath.Join(dir, TruthDir, TruthPosesName))
-	if err != nil {
-		t.Fatal(err)
-	}
+	res, tp, seen := fuseSynth(t, "valve", opt, DefaultFuseOptions())
 	r := res.Report
 	if r.FramesUsed != 120 {
 		t.Errorf("%d of 120 frames placed: %+v", r.FramesUsed, r.Skipped)
 	}
-	var worstT, worstR float64
-	for i, p := range r.CamToWorld {
-		worstT = math.Max(worstT, r3.Norm(r3.Sub(p.T, tp.CamToWorld[i].T)))
-		worstR = math.Max(worstR, mesh.RotationAngle(p, tp.CamToWorld[i]))
-	}
-	seen, err := mesh.LoadMesh(filepath.Join(dir, TruthDir, TruthSeenName))
-	if err != nil {
-		t.Fatal(err)
-	}
+	worstT, worstR := worstCameraError(r, tp)
 	mean := meanOf(surfaceDistances(t, res.Mesh, seen, 200000))
 	t.Logf("worst camera error %.2f mm / %.3f°, mean surface distance %.3f mm, %s", worstT*1000, worstR*180/math.Pi, mean*1000, r.Timings["total"])
 	if worstT > 0.004 || worstR > math.Pi/180 || mean > 0.001 {

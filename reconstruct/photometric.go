@@ -108,7 +108,6 @@ func (t *Tracker) SetKeyframe(lum, depth []float32, camToWorld mesh.Pose) {
 			}
 		}
 	}
-	t.hasKey = true
 }
 
 // photometric adds the colour term of level l to sys: every step-th
@@ -132,12 +131,10 @@ func (t *Tracker) photometric(sys *mesh.PlaneSystem, l int, camToWorld mesh.Pose
 	rows := (lv.intr.Height + step - 1) / step
 	const rowsPerPart = 8
 	nParts := (rows + rowsPerPart - 1) / rowsPerPart
-	type part struct {
-		sys        mesh.PlaneSystem
-		sums       [5]float64
-		cand, pair int
+	if cap(t.photo) < nParts {
+		t.photo = make([]photoPart, nParts)
 	}
-	parts := make([]part, nParts)
+	parts := t.photo[:nParts]
 	camToKey := t.key.camToWorld.Inv().Mul(camToWorld)
 	keyR := t.key.camToWorld.R
 	ki := kl.intr
@@ -148,6 +145,7 @@ func (t *Tracker) photometric(sys *mesh.PlaneSystem, l int, camToWorld mesh.Pose
 	a, b := gain[0], gain[1]
 	par.For(nParts, t.opt.Workers, func(k int) {
 		pt := &parts[k]
+		*pt = photoPart{}
 		for r := k * rowsPerPart; r < min((k+1)*rowsPerPart, rows); r++ {
 			y := r * step
 			for x := 0; x < lv.intr.Width; x += step {
@@ -218,6 +216,13 @@ func (t *Tracker) photometric(sys *mesh.PlaneSystem, l int, camToWorld mesh.Pose
 		pair += parts[k].pair
 	}
 	return gainSums, float64(pair) / math.Max(1, float64(cand))
+}
+
+// photoPart is one row band's share of the colour term.
+type photoPart struct {
+	sys        mesh.PlaneSystem
+	sums       [5]float64
+	cand, pair int
 }
 
 // fitGain fits I_new ≈ a·I_key + b to the sums photometric returns,

@@ -254,19 +254,16 @@ func (p *plateImage) sample(x, y float64) (float64, bool) {
 }
 
 // resamplePlate projects every cell's centre on the plate into the
-// view and reads the colour image's luminance there bilinearly (Rec.
-// 601 weights), keeping the cell when the depth at the nearest pixel
+// view and reads the colour image's luminance (Luminance) there
+// bilinearly, keeping the cell when the depth at the nearest pixel
 // lies within Band of the plane.
 func resamplePlate(vw PlateView, plate Plane, origin, u, v r3.Vec, n int, opt PlateAxisOptions) plateImage {
 	side := 2*n + 1
 	img := plateImage{n: n, cell: opt.Cell, lum: make([]float32, side*side)}
 	w, h := vw.Intr.Width, vw.Intr.Height
 	nan := float32(math.NaN())
-	lum := func(x, y int) float64 {
-		o := vw.Color.PixOffset(x+vw.Color.Rect.Min.X, y+vw.Color.Rect.Min.Y)
-		p := vw.Color.Pix[o : o+3 : o+3]
-		return 0.299*float64(p[0]) + 0.587*float64(p[1]) + 0.114*float64(p[2])
-	}
+	l := Luminance(vw.Color, nil)
+	lum := func(x, y int) float64 { return float64(l[y*w+x]) }
 	r2 := float64(n) * float64(n)
 	for j := -n; j <= n; j++ {
 		for i := -n; i <= n; i++ {

@@ -1,15 +1,10 @@
 package reconstruct
 
 import (
-	"context"
 	"math"
 	"os"
-	"path/filepath"
 	"testing"
 
-	"gonum.org/v1/gonum/spatial/r3"
-
-	"github.com/scanfold/scanfold/mesh"
 	"github.com/scanfold/scanfold/mesh/parts"
 )
 
@@ -30,21 +25,9 @@ func TestFuseTargets(t *testing.T) {
 			opt := DefaultSynthOptions()
 			opt.Frames = 72
 			opt.Seed = 11
-			dir := synthSweep(t, name, opt)
-			sw, err := LoadSweep(dir)
-			if err != nil {
-				t.Fatal(err)
-			}
 			fo := DefaultFuseOptions()
 			fo.TSDF.VoxelSize = 0.0015
-			res, err := Fuse(context.Background(), sw, fo)
-			if err != nil {
-				t.Fatal(err)
-			}
-			seen, err := mesh.LoadMesh(filepath.Join(dir, TruthDir, TruthSeenName))
-			if err != nil {
-				t.Fatal(err)
-			}
+			res, _, seen := fuseSynth(t, name, opt, fo)
 			mean := meanOf(surfaceDistances(t, res.Mesh, seen, 400000))
 			_, _, f2 := fScore(t, res.Mesh, seen, 0.002)
 			_, _, f1 := fScore(t, res.Mesh, seen, 0.001)
@@ -60,35 +43,8 @@ func TestFuseTargets(t *testing.T) {
 			opt.Rig = RigHandheld
 			opt.Frames = 120
 			opt.Seed = 11
-			dir := synthSweep(t, name, opt)
-			sw, err := LoadSweep(dir)
-			if err != nil {
-				t.Fatal(err)
-			}
-			res, err := Fuse(context.Background(), sw, DefaultFuseOptions())
-			if err != nil {
-				t.Fatal(err)
-			}
-			tp, err := ReadTruthPoses(filepath.Join(dir, TruthDir, TruthPosesName))
-			if err != nil {
-				t.Fatal(err)
-			}
-			skipped := map[int]bool{}
-			for _, s := range res.Report.Skipped {
-				skipped[s.Frame] = true
-			}
-			var maxT, maxR float64
-			for i, p := range res.Report.CamToWorld {
-				if skipped[i] {
-					continue
-				}
-				maxT = math.Max(maxT, r3Dist(p.T, tp.CamToWorld[i].T))
-				maxR = math.Max(maxR, mesh.RotationAngle(p, tp.CamToWorld[i]))
-			}
-			seen, err := mesh.LoadMesh(filepath.Join(dir, TruthDir, TruthSeenName))
-			if err != nil {
-				t.Fatal(err)
-			}
+			res, tp, seen := fuseSynth(t, name, opt, DefaultFuseOptions())
+			maxT, maxR := worstCameraError(res.Report, tp)
 			mean := meanOf(surfaceDistances(t, res.Mesh, seen, 400000))
 			_, _, f2 := fScore(t, res.Mesh, seen, 0.002)
 			t.Logf("%s handheld: %d of %d frames placed, worst camera error %.2f mm / %.2f°, mean %.3f mm, F@2mm %.3f, %s",
@@ -96,5 +52,3 @@ func TestFuseTargets(t *testing.T) {
 		})
 	}
 }
-
-func r3Dist(a, b r3.Vec) float64 { return r3.Norm(r3.Sub(a, b)) }

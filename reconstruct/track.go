@@ -205,9 +205,9 @@ type Tracker struct {
 	parts     []mesh.PlaneSystem
 	cands     []int
 	// colour term: the keyframe and the new frame's luminance pyramid
-	key    *keyframe
-	hasKey bool
-	lum    [pyramidLevels][]float32
+	key   *keyframe
+	photo []photoPart
+	lum   [pyramidLevels][]float32
 }
 
 // NewTracker returns a tracker over vol for frames of intrinsics intr.
@@ -239,7 +239,11 @@ func (t *Tracker) UpdateModel(ctx context.Context, camToWorld mesh.Pose) {
 // Track places depth (metres, the tracker's intrinsics) starting from
 // predicted, a CamToWorld guess (the last pose, or a constant-velocity
 // extrapolation). A frame that cannot be placed comes back Lost with the
-// reason, and is not to be integrated.
+// reason, and is not to be integrated. A frame placed more than 5 mm or
+// 0.5° from the prediction is aligned once more from there (the few
+// iterations per level can stop short of a large move: the second frame
+// of a handheld sweep has no motion model, and stopped 7.2 mm off on a
+// demo sweep).
 //
 // mask is nil (use every pixel) or marks the pixels that belong to what
 // the model holds (a turntable's part, which turns while the rest of the
@@ -266,7 +270,7 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 		return TrackResult{}, fmt.Errorf("reconstruct: luminance has %d pixels for %d", len(lum), len(depth))
 	}
 	t.buildPyramid(depth, mask)
-	colour := lum != nil && t.hasKey && t.opt.ColorSigma > 0
+	colour := lum != nil && t.key != nil && t.opt.ColorSigma > 0
 	if colour {
 		copy(t.lum[0], lum)
 		for l := 1; l < pyramidLevels; l++ {
@@ -274,41 +278,27 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 			downLuminance(t.lum[l-1], src.depth, src.intr.Width, src.intr.Height, t.lum[l])
 		}
 	}
-	gain := [2]float64{1, 0}
-	pose := predicted
 	res := TrackResult{CamToWorld: predicted}
-	cosMax := math.Cos(t.opt.MaxNormalAngle)
-	worldToModel := t.modelPose.Inv()
-	for l := pyramidLevels - 1; l >= 0; l-- {
-		lv := &t.levels[l]
-		step := 1
-		if l == 0 {
-			step = 2 // every second pixel of the full image is plenty
+	pose, overlap, lost, err := t.align(ctx, predicted, colour)
+	if err != nil || lost != "" {
+		res.Lost, res.Reason = lost != "", lost
+		return res, err
+	}
+	if moved := predicted.Inv().Mul(pose); r3.Norm(moved.T) > retrackShift || mesh.RotationAngle(moved, mesh.Identity()) > retrackTurn {
+		// Far from the prediction (a second frame, which has no motion
+		// model, or a sudden move): the pyramid's few iterations may have
+		// stopped short; run it again from where it got.
+		p2, o2, lost2, err := t.align(ctx, pose, colour)
+		if err != nil {
+			return res, err
 		}
-		for it := 0; it < t.opt.Iterations[l]; it++ {
-			if err := ctx.Err(); err != nil {
-				return res, err
-			}
-			sys, _ := t.associate(lv, pose, worldToModel, t.opt.MaxDistance[l], cosMax, step)
-			if colour {
-				sums, _ := t.photometric(&sys, l, pose, step, gain)
-				gain = fitGain(sums)
-			}
-			if sys.Pairs < 30 {
-				res.Lost, res.Reason = true, fmt.Sprintf("only %d pixel pairs at pyramid level %d", sys.Pairs, l)
-				return res, nil
-			}
-			st, angle, shift, ok := sys.StepToward(t.opt.Damping, pose.Mul(predicted.Inv()))
-			if !ok {
-				res.Lost, res.Reason = true, "the scene does not constrain the camera (degenerate point-to-plane system)"
-				return res, nil
-			}
-			pose = st.Mul(pose).Orthonormalize()
-			if angle < t.opt.StopTurn && shift < t.opt.StopShift {
-				break
-			}
+		if lost2 == "" {
+			pose, overlap = p2, o2
 		}
 	}
+	res.KeyOverlap = overlap
+	cosMax := math.Cos(t.opt.MaxNormalAngle)
+	worldToModel := t.modelPose.Inv()
 	sys, cands := t.associate(&t.levels[0], pose, worldToModel, t.opt.MaxDistance[0], cosMax, 2)
 	res.CamToWorld = pose
 	res.Pairs = sys.Pairs
@@ -317,10 +307,6 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 	// (pixels beyond the model, such as a far wall the volume does not
 	// hold, say nothing either way).
 	res.InlierRatio = float64(sys.Pairs) / math.Max(1, float64(cands))
-	if colour {
-		var dummy mesh.PlaneSystem
-		_, res.KeyOverlap = t.photometric(&dummy, 0, pose, 4, gain)
-	}
 	moved := predicted.Inv().Mul(pose)
 	_, turn := moved.AxisAngle()
 	switch {
@@ -335,6 +321,55 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 		res.CamToWorld = predicted
 	}
 	return res, nil
+}
+
+// A frame tracked farther than this from its prediction is tracked
+// again from the result (TrackColor).
+const (
+	retrackShift = 0.005
+	retrackTurn  = 0.5 * math.Pi / 180
+)
+
+// align runs the coarse-to-fine iterations from start (also the pose
+// the damping pulls toward) and returns the pose reached, the share of
+// the frame's pixels that paired with the keyframe's colour in the last
+// step at full resolution (colour only), and why the frame is lost when
+// a step cannot be taken.
+func (t *Tracker) align(ctx context.Context, start mesh.Pose, colour bool) (pose mesh.Pose, overlap float64, lost string, err error) {
+	gain := [2]float64{1, 0}
+	pose = start
+	cosMax := math.Cos(t.opt.MaxNormalAngle)
+	worldToModel := t.modelPose.Inv()
+	for l := pyramidLevels - 1; l >= 0; l-- {
+		lv := &t.levels[l]
+		step := 1
+		if l == 0 {
+			step = 2 // every second pixel of the full image is plenty
+		}
+		for it := 0; it < t.opt.Iterations[l]; it++ {
+			if err := ctx.Err(); err != nil {
+				return pose, overlap, "", err
+			}
+			sys, _ := t.associate(lv, pose, worldToModel, t.opt.MaxDistance[l], cosMax, step)
+			if colour {
+				var sums [5]float64
+				sums, overlap = t.photometric(&sys, l, pose, step, gain)
+				gain = fitGain(sums)
+			}
+			if sys.Pairs < 30 {
+				return pose, overlap, fmt.Sprintf("only %d pixel pairs at pyramid level %d", sys.Pairs, l), nil
+			}
+			st, angle, shift, ok := sys.StepToward(t.opt.Damping, pose.Mul(start.Inv()))
+			if !ok {
+				return pose, overlap, "the scene does not constrain the camera (degenerate point-to-plane system)", nil
+			}
+			pose = st.Mul(pose).Orthonormalize()
+			if angle < t.opt.StopTurn && shift < t.opt.StopShift {
+				break
+			}
+		}
+	}
+	return pose, overlap, "", nil
 }
 
 // associate pairs the pixels of lv (every step-th in both directions)

@@ -149,8 +149,10 @@ func TestTrackerLost(t *testing.T) {
 // against the first frame as keyframe recovers it. (On the 0.28 m disc
 // of plateScene's default, at one depth, a yaw and a sideways shift
 // look nearly alike in the image and the estimate slid 1.3 mm along
-// that combination; the wider table's depth range tells them apart.) The scene and the true pose are closed-form
-// (plateScene: ray–plane intersection; TurntablePose for the truth).
+// that combination, measured with one pass of the pyramid; the wider
+// table's depth range tells them apart.) The scene and the true pose
+// are closed-form (plateScene: ray–plane intersection; the turn's
+// rigid motion for the truth).
 // Tolerance 1 mm and 0.1°: the texture's 13 mm shortest wavelength is
 // imaged at 12 pixels, so a tenth of a pixel of registration (about
 // 0.1 mm on the plate) moves the camera by under 1 mm at 0.55 m.
@@ -160,7 +162,11 @@ func TestTrackColorPinsTurnOnTexturedPlate(t *testing.T) {
 	s.radius = 0.5 // a table top filling the lower image: depths 0.4–1 m
 	const turn = 1 * math.Pi / 180
 	v0, v1 := s.view(0, 0), s.view(1, turn)
-	truth := TurntablePose(s.p0, s.up, turn)
+	// The plate turns by R about the line through p0 along up, so a
+	// world point x appears at R(x − p0) + p0 in the new camera; the
+	// camera's pose is the inverse of that map.
+	r := mesh.RotationFromAxisAngle(s.up, turn)
+	truth := mesh.Pose{R: r, T: r3.Sub(s.p0, r.MulVec(s.p0))}.Inv()
 	ctx := context.Background()
 	opt := DefaultTSDFOptions()
 	opt.VoxelSize = 0.004
