@@ -6,7 +6,6 @@ import (
 
 	"gonum.org/v1/gonum/spatial/r3"
 
-	"github.com/scanfold/scanfold/internal/par"
 	"github.com/scanfold/scanfold/mesh"
 )
 
@@ -36,11 +35,21 @@ type keyframe struct {
 }
 
 type keyLevel struct {
-	intr     mesh.Intrinsics
-	lum      []float32
-	depth    []float32
-	gx, gy   []float32
-	hasGrads []bool
+	intr  mesh.Intrinsics
+	lum   []float32
+	depth []float32
+	// pix packs per pixel what the colour term reads (one load of
+	// neighbouring memory for the four pixels it interpolates).
+	pix []keyPixel
+}
+
+// keyPixel is one keyframe pixel as the colour term reads it: its
+// luminance, the luminance's central-difference gradient, its depth,
+// and whether the gradient exists (the pixel and its four neighbours
+// have depth).
+type keyPixel struct {
+	lum, gx, gy, depth float32
+	ok                 bool
 }
 
 // downLuminance halves a luminance image over the pixels whose depth
@@ -77,7 +86,7 @@ func (t *Tracker) SetKeyframe(lum, depth []float32, camToWorld mesh.Pose) {
 		for l := 0; l < pyramidLevels; l++ {
 			li := t.intr.Scaled(1 << l)
 			n := li.Width * li.Height
-			t.key.levels[l] = keyLevel{intr: li, lum: make([]float32, n), depth: make([]float32, n), gx: make([]float32, n), gy: make([]float32, n), hasGrads: make([]bool, n)}
+			t.key.levels[l] = keyLevel{intr: li, lum: make([]float32, n), depth: make([]float32, n), pix: make([]keyPixel, n)}
 		}
 	}
 	k := t.key
@@ -95,127 +104,112 @@ func (t *Tracker) SetKeyframe(lum, depth []float32, camToWorld mesh.Pose) {
 		for y := 0; y < h; y++ {
 			for x := 0; x < w; x++ {
 				i := y*w + x
-				kl.hasGrads[i] = false
+				kl.pix[i] = keyPixel{lum: kl.lum[i], depth: kl.depth[i]}
 				if x == 0 || y == 0 || x == w-1 || y == h-1 {
 					continue
 				}
 				if kl.depth[i] <= 0 || kl.depth[i-1] <= 0 || kl.depth[i+1] <= 0 || kl.depth[i-w] <= 0 || kl.depth[i+w] <= 0 {
 					continue
 				}
-				kl.gx[i] = (kl.lum[i+1] - kl.lum[i-1]) / 2
-				kl.gy[i] = (kl.lum[i+w] - kl.lum[i-w]) / 2
-				kl.hasGrads[i] = true
+				kl.pix[i].gx = (kl.lum[i+1] - kl.lum[i-1]) / 2
+				kl.pix[i].gy = (kl.lum[i+w] - kl.lum[i-w]) / 2
+				kl.pix[i].ok = true
 			}
 		}
 	}
 }
 
-// photometric adds the colour term of level l to sys: every step-th
-// pixel of the new frame with depth, moved by camToWorld into the
-// keyframe, is compared with the keyframe's luminance there (bilinear,
-// with its gradient), after an affine gain a·I + b fitted to the
-// previous iteration's pairs takes out the frame's exposure and light
-// changes. The residual a·I_key(π(p)) + b − I_new is linearised in the
-// point's motion through the keyframe's projection (direct RGB-D
-// alignment: Steinbrücker, Sturm & Cremers 2011, "Real-time visual
-// odometry from dense RGB-D images", ICCV Workshops, DOI
-// 10.1109/ICCVW.2011.6130321), weighted so that a residual of
-// ColorSigma counts like a depth residual of the reference axial noise,
-// with Huber weights beyond 2·ColorSigma (occlusions, highlights). It
-// returns the sums of the pairs' luminances for the next gain fit and
-// the share of the candidates that paired.
-func (t *Tracker) photometric(sys *mesh.PlaneSystem, l int, camToWorld mesh.Pose, step int, gain [2]float64) (gainSums [5]float64, overlap float64) {
-	lv := &t.levels[l]
-	kl := &t.key.levels[l]
-	lum := t.lum[l]
-	rows := (lv.intr.Height + step - 1) / step
-	const rowsPerPart = 8
-	nParts := (rows + rowsPerPart - 1) / rowsPerPart
-	if cap(t.photo) < nParts {
-		t.photo = make([]photoPart, nParts)
-	}
-	parts := t.photo[:nParts]
-	camToKey := t.key.camToWorld.Inv().Mul(camToWorld)
-	keyR := t.key.camToWorld.R
-	ki := kl.intr
+// colourTerm adds the colour term of one tracking pass: every sample
+// of the new frame, moved by camToWorld into the keyframe, is compared
+// with the keyframe's luminance there (bilinear, with its gradient),
+// after an affine gain a·I + b fitted to the previous iteration's pairs
+// takes out the frame's exposure and light changes. The residual
+// a·I_key(π(p)) + b − I_new is linearised in the point's motion through
+// the keyframe's projection (direct RGB-D alignment: Steinbrücker,
+// Sturm & Cremers 2011, "Real-time visual odometry from dense RGB-D
+// images", ICCV Workshops, DOI 10.1109/ICCVW.2011.6130321), weighted so
+// that a residual of ColorSigma counts like a depth residual of the
+// reference axial noise, with Huber weights beyond 2·ColorSigma
+// (occlusions, highlights). Each band sums its pairs' luminances for
+// the next gain fit and counts its candidates and pairs (the share that
+// paired is the keyframe overlap).
+type colourTerm struct {
+	kl       *keyLevel
+	camToKey affine
+	keyR     affine
+	w0       float64
+	huber    float64
+	a, b     float64
+}
+
+// colourTerm returns the colour term of level l at camToWorld.
+func (t *Tracker) colourTerm(l int, camToWorld mesh.Pose, gain [2]float64) colourTerm {
 	refSigma := axialSigma(0.5, 0)
 	sigma := t.opt.ColorSigma
-	w0 := refSigma * refSigma / (sigma * sigma)
-	huber := 2 * sigma
-	a, b := gain[0], gain[1]
-	par.For(nParts, t.opt.Workers, func(k int) {
-		pt := &parts[k]
-		*pt = photoPart{}
-		for r := k * rowsPerPart; r < min((k+1)*rowsPerPart, rows); r++ {
-			y := r * step
-			for x := 0; x < lv.intr.Width; x += step {
-				i := y*lv.intr.Width + x
-				if lv.depth[i] <= 0 {
-					continue
-				}
-				pk := camToKey.Apply(lv.vert[i])
-				if pk.Z <= 0 {
-					continue
-				}
-				pt.cand++
-				uf := ki.Fx*pk.X/pk.Z + ki.Cx
-				vf := ki.Fy*pk.Y/pk.Z + ki.Cy
-				if !(uf >= 1 && vf >= 1) {
-					continue
-				}
-				x0, y0 := int(uf), int(vf)
-				if x0+2 >= ki.Width || y0+2 >= ki.Height {
-					continue
-				}
-				j := y0*ki.Width + x0
-				if !kl.hasGrads[j] || !kl.hasGrads[j+1] || !kl.hasGrads[j+ki.Width] || !kl.hasGrads[j+ki.Width+1] {
-					continue
-				}
-				// Occlusion: the keyframe saw something else, nearer.
-				zk := kl.depth[j]
-				if math.Abs(float64(zk)-pk.Z) > math.Max(0.01, 4*axialSigma(pk.Z, 0)) {
-					continue
-				}
-				tx, ty := float32(uf-float64(x0)), float32(vf-float64(y0))
-				bil := func(img []float32) float64 {
-					top := img[j]*(1-tx) + img[j+1]*tx
-					bot := img[j+ki.Width]*(1-tx) + img[j+ki.Width+1]*tx
-					return float64(top*(1-ty) + bot*ty)
-				}
-				ik, gx, gy := bil(kl.lum), bil(kl.gx), bil(kl.gy)
-				in := float64(lum[i])
-				res := a*ik + b - in
-				pt.sums[0] += ik
-				pt.sums[1] += in
-				pt.sums[2] += ik * ik
-				pt.sums[3] += ik * in
-				pt.sums[4]++
-				pt.pair++
-				// ∂r/∂p in the keyframe's camera, then in the world.
-				iz := 1 / pk.Z
-				gk := r3.Vec{
-					X: a * gx * ki.Fx * iz,
-					Y: a * gy * ki.Fy * iz,
-					Z: -a * (gx*ki.Fx*pk.X + gy*ki.Fy*pk.Y) * iz * iz,
-				}
-				w := w0
-				if ar := math.Abs(res); ar > huber {
-					w *= huber / ar
-				}
-				pt.sys.AddGradient(camToWorld.Apply(lv.vert[i]), keyR.MulVec(gk), res, w)
-			}
-		}
-	})
-	cand, pair := 0, 0
-	for k := range parts {
-		sys.Merge(&parts[k].sys)
-		for m := range gainSums {
-			gainSums[m] += parts[k].sums[m]
-		}
-		cand += parts[k].cand
-		pair += parts[k].pair
+	return colourTerm{
+		kl:       &t.key.levels[l],
+		camToKey: newAffine(t.key.camToWorld.Inv().Mul(camToWorld)),
+		keyR:     newAffine(mesh.Pose{R: t.key.camToWorld.R}),
+		w0:       refSigma * refSigma / (sigma * sigma),
+		huber:    2 * sigma,
+		a:        gain[0],
+		b:        gain[1],
 	}
-	return gainSums, float64(pair) / math.Max(1, float64(cand))
+}
+
+// add adds sample s, at p in the world, to pt.
+func (c *colourTerm) add(pt *photoPart, s *trackSample, p r3.Vec) {
+	ki := &c.kl.intr
+	pk := c.camToKey.apply(s.v)
+	if pk.Z <= 0 {
+		return
+	}
+	pt.cand++
+	uf := ki.Fx*pk.X/pk.Z + ki.Cx
+	vf := ki.Fy*pk.Y/pk.Z + ki.Cy
+	if !(uf >= 1 && vf >= 1) {
+		return
+	}
+	x0, y0 := int(uf), int(vf)
+	kw := ki.Width
+	if x0+2 >= kw || y0+2 >= ki.Height {
+		return
+	}
+	j := y0*kw + x0
+	pix := c.kl.pix
+	p00, p01, p10, p11 := &pix[j], &pix[j+1], &pix[j+kw], &pix[j+kw+1]
+	if !p00.ok || !p01.ok || !p10.ok || !p11.ok {
+		return
+	}
+	// Occlusion: the keyframe saw something else, nearer.
+	if math.Abs(float64(p00.depth)-pk.Z) > math.Max(0.01, 4*axialSigma(pk.Z, 0)) {
+		return
+	}
+	tx, ty := float32(uf-float64(x0)), float32(vf-float64(y0))
+	ik := float64((p00.lum*(1-tx)+p01.lum*tx)*(1-ty) + (p10.lum*(1-tx)+p11.lum*tx)*ty)
+	gx := float64((p00.gx*(1-tx)+p01.gx*tx)*(1-ty) + (p10.gx*(1-tx)+p11.gx*tx)*ty)
+	gy := float64((p00.gy*(1-tx)+p01.gy*tx)*(1-ty) + (p10.gy*(1-tx)+p11.gy*tx)*ty)
+	in := float64(s.lum)
+	a := c.a
+	res := a*ik + c.b - in
+	pt.sums[0] += ik
+	pt.sums[1] += in
+	pt.sums[2] += ik * ik
+	pt.sums[3] += ik * in
+	pt.sums[4]++
+	pt.pair++
+	// ∂r/∂p in the keyframe's camera, then in the world.
+	iz := 1 / pk.Z
+	gk := r3.Vec{
+		X: a * gx * ki.Fx * iz,
+		Y: a * gy * ki.Fy * iz,
+		Z: -a * (gx*ki.Fx*pk.X + gy*ki.Fy*pk.Y) * iz * iz,
+	}
+	w := c.w0
+	if ar := math.Abs(res); ar > c.huber {
+		w *= c.huber / ar
+	}
+	pt.sys.AddGradient(p, c.keyR.rotate(gk), res, w)
 }
 
 // photoPart is one row band's share of the colour term.

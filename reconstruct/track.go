@@ -122,6 +122,37 @@ type level struct {
 	// of a pair in that bin (normal-space equalisation, below).
 	bin       []uint8
 	binWeight [normalBins]float64
+	// samples are the pixels tracking visits (every step-th in both
+	// directions, with depth), row by row, and bands[k] the first of
+	// band k's (trackBandRows sampled rows a band); bands has one entry
+	// more than there are bands.
+	samples []trackSample
+	bands   []int
+}
+
+// trackSample is one pixel that tracking visits, gathered once a frame
+// so that the iterations read one contiguous array: its camera-frame
+// vertex, its normal (zero when it has none), the weight of its
+// point-to-plane pair and its luminance (colour term; 0 without).
+type trackSample struct {
+	v, n r3.Vec
+	w    float64
+	lum  float32
+}
+
+// trackBandRows is how many sampled rows make one band of a tracking
+// pass: the bands are the parallel work items, and their partial sums
+// are merged in band order, so the result does not depend on the
+// number of workers.
+const trackBandRows = 8
+
+// levelStep is the pixel step tracking uses at pyramid level l: every
+// second pixel of the full image is plenty.
+func levelStep(l int) int {
+	if l == 0 {
+		return 2
+	}
+	return 1
 }
 
 // normalBins is the number of normal-direction bins: the six faces of a
@@ -202,12 +233,17 @@ type Tracker struct {
 	model     *ModelMap
 	modelPose mesh.Pose
 	hasModel  bool
-	parts     []mesh.PlaneSystem
-	cands     []int
+	parts     []bandSums
 	// colour term: the keyframe and the new frame's luminance pyramid
-	key   *keyframe
-	photo []photoPart
-	lum   [pyramidLevels][]float32
+	key *keyframe
+	lum [pyramidLevels][]float32
+}
+
+// bandSums is one band's share of a tracking pass.
+type bandSums struct {
+	icp   mesh.PlaneSystem
+	cands int
+	photo photoPart
 }
 
 // NewTracker returns a tracker over vol for frames of intrinsics intr.
@@ -278,35 +314,46 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 			downLuminance(t.lum[l-1], src.depth, src.intr.Width, src.intr.Height, t.lum[l])
 		}
 	}
+	for l := range t.levels {
+		var ll []float32
+		if colour {
+			ll = t.lum[l]
+		}
+		t.levels[l].gather(levelStep(l), ll)
+	}
 	res := TrackResult{CamToWorld: predicted}
-	pose, overlap, lost, err := t.align(ctx, predicted, colour)
+	a, lost, err := t.align(ctx, predicted, colour)
 	if err != nil || lost != "" {
 		res.Lost, res.Reason = lost != "", lost
 		return res, err
 	}
-	if moved := predicted.Inv().Mul(pose); r3.Norm(moved.T) > retrackShift || mesh.RotationAngle(moved, mesh.Identity()) > retrackTurn {
+	if moved := predicted.Inv().Mul(a.pose); r3.Norm(moved.T) > retrackShift || mesh.RotationAngle(moved, mesh.Identity()) > retrackTurn {
 		// Far from the prediction (a second frame, which has no motion
 		// model, or a sudden move): the pyramid's few iterations may have
 		// stopped short; run it again from where it got.
-		p2, o2, lost2, err := t.align(ctx, pose, colour)
+		a2, lost2, err := t.align(ctx, a.pose, colour)
 		if err != nil {
 			return res, err
 		}
 		if lost2 == "" {
-			pose, overlap = p2, o2
+			a = a2
 		}
 	}
-	res.KeyOverlap = overlap
-	cosMax := math.Cos(t.opt.MaxNormalAngle)
-	worldToModel := t.modelPose.Inv()
-	sys, cands := t.associate(&t.levels[0], pose, worldToModel, t.opt.MaxDistance[0], cosMax, 2)
+	pose := a.pose
+	res.KeyOverlap = a.overlap
+	// The residual and pairs are those of the last step at full
+	// resolution, taken from the pose before it: that step moved the
+	// camera by less than StopShift/StopTurn, or by what the iterations
+	// left, and a pass over the frame to measure them again at the
+	// final pose cost a tenth of the tracking time.
+	sys := &a.last
 	res.CamToWorld = pose
 	res.Pairs = sys.Pairs
 	res.RMS = sys.RMS()
 	// The share of the pixels that land on the model which pair with it
 	// (pixels beyond the model, such as a far wall the volume does not
 	// hold, say nothing either way).
-	res.InlierRatio = float64(sys.Pairs) / math.Max(1, float64(cands))
+	res.InlierRatio = float64(sys.Pairs) / math.Max(1, float64(a.cands))
 	moved := predicted.Inv().Mul(pose)
 	_, turn := moved.AxisAngle()
 	switch {
@@ -330,38 +377,45 @@ const (
 	retrackTurn  = 0.5 * math.Pi / 180
 )
 
+// alignment is what align reaches: the pose, the share of the frame's
+// pixels that paired with the keyframe's colour (colour only), and the
+// point-to-plane system of the last step at full resolution with its
+// number of candidates (pixels that landed on the model).
+type alignment struct {
+	pose    mesh.Pose
+	overlap float64
+	last    mesh.PlaneSystem
+	cands   int
+}
+
 // align runs the coarse-to-fine iterations from start (also the pose
-// the damping pulls toward) and returns the pose reached, the share of
-// the frame's pixels that paired with the keyframe's colour in the last
-// step at full resolution (colour only), and why the frame is lost when
-// a step cannot be taken.
-func (t *Tracker) align(ctx context.Context, start mesh.Pose, colour bool) (pose mesh.Pose, overlap float64, lost string, err error) {
+// the damping pulls toward) and returns what it reached, and why the
+// frame is lost when a step cannot be taken.
+func (t *Tracker) align(ctx context.Context, start mesh.Pose, colour bool) (a alignment, lost string, err error) {
 	gain := [2]float64{1, 0}
-	pose = start
+	pose := start
 	cosMax := math.Cos(t.opt.MaxNormalAngle)
 	worldToModel := t.modelPose.Inv()
 	for l := pyramidLevels - 1; l >= 0; l-- {
-		lv := &t.levels[l]
-		step := 1
-		if l == 0 {
-			step = 2 // every second pixel of the full image is plenty
-		}
 		for it := 0; it < t.opt.Iterations[l]; it++ {
 			if err := ctx.Err(); err != nil {
-				return pose, overlap, "", err
+				return alignment{pose: pose}, "", err
 			}
-			sys, _ := t.associate(lv, pose, worldToModel, t.opt.MaxDistance[l], cosMax, step)
+			sys, cands, sums, overlap := t.pass(l, pose, worldToModel, t.opt.MaxDistance[l], cosMax, colour, gain)
+			a.pose = pose
+			if l == 0 {
+				a.last, a.cands = sys.icp, cands
+			}
 			if colour {
-				var sums [5]float64
-				sums, overlap = t.photometric(&sys, l, pose, step, gain)
+				a.overlap = overlap
 				gain = fitGain(sums)
 			}
-			if sys.Pairs < 30 {
-				return pose, overlap, fmt.Sprintf("only %d pixel pairs at pyramid level %d", sys.Pairs, l), nil
+			if sys.all.Pairs < 30 {
+				return a, fmt.Sprintf("only %d pixel pairs at pyramid level %d", sys.all.Pairs, l), nil
 			}
-			st, angle, shift, ok := sys.StepToward(t.opt.Damping, pose.Mul(start.Inv()))
+			st, angle, shift, ok := sys.all.StepToward(t.opt.Damping, pose.Mul(start.Inv()))
 			if !ok {
-				return pose, overlap, "the scene does not constrain the camera (degenerate point-to-plane system)", nil
+				return a, "the scene does not constrain the camera (degenerate point-to-plane system)", nil
 			}
 			pose = st.Mul(pose).Orthonormalize()
 			if angle < t.opt.StopTurn && shift < t.opt.StopShift {
@@ -369,75 +423,163 @@ func (t *Tracker) align(ctx context.Context, start mesh.Pose, colour bool) (pose
 			}
 		}
 	}
-	return pose, overlap, "", nil
+	a.pose = pose
+	return a, "", nil
 }
 
-// associate pairs the pixels of lv (every step-th in both directions)
-// moved by camToWorld with the model map and returns the summed system
-// and the number of candidates (pixels that landed on a model pixel,
-// before the distance and angle tests).
-func (t *Tracker) associate(lv *level, camToWorld, worldToModel mesh.Pose, maxD, cosMax float64, step int) (mesh.PlaneSystem, int) {
-	rows := (lv.intr.Height + step - 1) / step
-	const rowsPerPart = 8
-	nParts := (rows + rowsPerPart - 1) / rowsPerPart
-	if cap(t.parts) < nParts {
-		t.parts = make([]mesh.PlaneSystem, nParts)
+// passSums is the outcome of one tracking pass: the point-to-plane
+// pairs alone, and with the colour term's rows added.
+type passSums struct {
+	icp, all mesh.PlaneSystem
+}
+
+// pass runs one iteration's pass over level l's samples moved by
+// camToWorld: each sample with a normal is projected into the model map
+// and paired with the model point and normal found there (projective
+// data association), and with colour each sample also adds the colour
+// term against the keyframe (photometric.go). It returns the summed
+// systems, the number of candidates (samples that landed on a model
+// pixel, before the distance and angle tests) and, with colour, the
+// gain sums and keyframe overlap of colourTerm.
+func (t *Tracker) pass(l int, camToWorld, worldToModel mesh.Pose, maxD, cosMax float64, colour bool, gain [2]float64) (sums passSums, cands int, gainSums [5]float64, overlap float64) {
+	lv := &t.levels[l]
+	nBands := len(lv.bands) - 1
+	if cap(t.parts) < nBands {
+		t.parts = make([]bandSums, nBands)
 	}
-	parts := t.parts[:nParts]
-	if cap(t.cands) < nParts {
-		t.cands = make([]int, nParts)
-	}
-	cands := t.cands[:nParts]
+	parts := t.parts[:nBands]
 	mi := t.model.Intr
+	mw, mh := mi.Width, mi.Height
+	points, normals := t.model.Points, t.model.Normals
 	maxD2 := maxD * maxD
-	refSigma2 := axialSigma(0.5, 0) * axialSigma(0.5, 0)
 	camToModel := worldToModel.Mul(camToWorld)
-	par.For(nParts, t.opt.Workers, func(k int) {
-		sys := &parts[k]
-		*sys = mesh.PlaneSystem{}
-		cands[k] = 0
-		for r := k * rowsPerPart; r < min((k+1)*rowsPerPart, rows); r++ {
-			y := r * step
-			for x := 0; x < lv.intr.Width; x += step {
-				i := y*lv.intr.Width + x
-				n := lv.norm[i]
-				if n == (r3.Vec{}) {
-					continue
-				}
-				pm := camToModel.Apply(lv.vert[i])
-				if pm.Z <= 0 {
-					continue
-				}
-				u := int(math.Floor(mi.Fx*pm.X/pm.Z + mi.Cx + 0.5))
-				v := int(math.Floor(mi.Fy*pm.Y/pm.Z + mi.Cy + 0.5))
-				if u < 0 || v < 0 || u >= mi.Width || v >= mi.Height {
-					continue
-				}
-				j := v*mi.Width + u
-				nq := t.model.Normals[j]
-				if nq == (r3.Vec{}) {
-					continue
-				}
-				cands[k]++
-				p := camToWorld.Apply(lv.vert[i])
-				q := t.model.Points[j]
-				if r3.Norm2(r3.Sub(p, q)) > maxD2 || r3.Dot(camToWorld.Rotate(n), nq) < cosMax {
-					continue
-				}
-				// Weight by the inverse variance of the pixel's axial noise
-				// (Nguyen et al. 2012): far pixels are several times noisier.
-				sg := axialSigma(lv.vert[i].Z, 0)
-				sys.Add(p, q, nq, lv.binWeight[lv.bin[i]]*refSigma2/(sg*sg))
+	cm, cw := newAffine(camToModel), newAffine(camToWorld)
+	var ct colourTerm
+	if colour {
+		ct = t.colourTerm(l, camToWorld, gain)
+	}
+	par.For(nBands, t.opt.Workers, func(k int) {
+		bs := &parts[k]
+		*bs = bandSums{}
+		sys := &bs.icp
+		for si := lv.bands[k]; si < lv.bands[k+1]; si++ {
+			s := &lv.samples[si]
+			v := s.v
+			if colour {
+				ct.add(&bs.photo, s, cw.apply(v))
 			}
+			n := s.n
+			if n == (r3.Vec{}) {
+				continue
+			}
+			pm := cm.apply(v)
+			if pm.Z <= 0 {
+				continue
+			}
+			u := int(math.Floor(mi.Fx*pm.X/pm.Z + mi.Cx + 0.5))
+			vv := int(math.Floor(mi.Fy*pm.Y/pm.Z + mi.Cy + 0.5))
+			if u < 0 || vv < 0 || u >= mw || vv >= mh {
+				continue
+			}
+			j := vv*mw + u
+			nq := normals[j]
+			if nq == (r3.Vec{}) {
+				continue
+			}
+			bs.cands++
+			p := cw.apply(v)
+			q := points[j]
+			if r3.Norm2(r3.Sub(p, q)) > maxD2 || r3.Dot(cw.rotate(n), nq) < cosMax {
+				continue
+			}
+			// s.w weighs by the inverse variance of the pixel's axial
+			// noise (Nguyen et al. 2012): far pixels are several times
+			// noisier.
+			sys.Add(p, q, nq, s.w)
 		}
 	})
-	var sum mesh.PlaneSystem
-	n := 0
 	for k := range parts {
-		sum.Merge(&parts[k])
-		n += cands[k]
+		sums.icp.Merge(&parts[k].icp)
+		cands += parts[k].cands
 	}
-	return sum, n
+	sums.all = sums.icp
+	if colour {
+		cand, pair := 0, 0
+		for k := range parts {
+			pp := &parts[k].photo
+			sums.all.Merge(&pp.sys)
+			for m := range gainSums {
+				gainSums[m] += pp.sums[m]
+			}
+			cand += pp.cand
+			pair += pp.pair
+		}
+		overlap = float64(pair) / math.Max(1, float64(cand))
+	}
+	return sums, cands, gainSums, overlap
+}
+
+// affine is a pose unpacked for hot loops (mesh.Pose.Apply is not
+// inlined); it computes the same expressions in the same order, so the
+// results are identical to the bit.
+type affine struct {
+	r00, r01, r02, r10, r11, r12, r20, r21, r22 float64
+	tx, ty, tz                                  float64
+}
+
+func newAffine(p mesh.Pose) affine {
+	r := p.R
+	return affine{r[0][0], r[0][1], r[0][2], r[1][0], r[1][1], r[1][2], r[2][0], r[2][1], r[2][2], p.T.X, p.T.Y, p.T.Z}
+}
+
+// apply returns R·x + T.
+func (a *affine) apply(x r3.Vec) r3.Vec {
+	return r3.Vec{
+		X: a.r00*x.X + a.r01*x.Y + a.r02*x.Z + a.tx,
+		Y: a.r10*x.X + a.r11*x.Y + a.r12*x.Z + a.ty,
+		Z: a.r20*x.X + a.r21*x.Y + a.r22*x.Z + a.tz,
+	}
+}
+
+// rotate returns R·x.
+func (a *affine) rotate(x r3.Vec) r3.Vec {
+	return r3.Vec{
+		X: a.r00*x.X + a.r01*x.Y + a.r02*x.Z,
+		Y: a.r10*x.X + a.r11*x.Y + a.r12*x.Z,
+		Z: a.r20*x.X + a.r21*x.Y + a.r22*x.Z,
+	}
+}
+
+// gather fills lv.samples and lv.bands from the level's maps for pixel
+// step step; lum is the level's luminance, or nil without colour.
+func (lv *level) gather(step int, lum []float32) {
+	w, h := lv.intr.Width, lv.intr.Height
+	rows := (h + step - 1) / step
+	nBands := (rows + trackBandRows - 1) / trackBandRows
+	lv.samples = lv.samples[:0]
+	lv.bands = append(lv.bands[:0], 0)
+	refSigma2 := axialSigma(0.5, 0) * axialSigma(0.5, 0)
+	for k := 0; k < nBands; k++ {
+		for r := k * trackBandRows; r < min((k+1)*trackBandRows, rows); r++ {
+			y := r * step
+			for x := 0; x < w; x += step {
+				i := y*w + x
+				if lv.depth[i] <= 0 {
+					continue
+				}
+				s := trackSample{v: lv.vert[i], n: lv.norm[i]}
+				if s.n != (r3.Vec{}) {
+					sg := axialSigma(s.v.Z, 0)
+					s.w = lv.binWeight[lv.bin[i]] * refSigma2 / (sg * sg)
+				}
+				if lum != nil {
+					s.lum = lum[i]
+				}
+				lv.samples = append(lv.samples, s)
+			}
+		}
+		lv.bands = append(lv.bands, len(lv.samples))
+	}
 }
 
 // buildPyramid fills the levels from a full-resolution depth image:
