@@ -183,6 +183,20 @@ func (m *ModelMap) Valid(i int) bool { return m.Normals[i] != r3.Vec{} }
 // 2013): a ray starts at the first block that can hold its surface and
 // stops after the last, and a ray that meets no block costs nothing.
 func (v *Volume) Raycast(ctx context.Context, intr mesh.Intrinsics, camToWorld mesh.Pose, dst *ModelMap) *ModelMap {
+	return v.raycast(ctx, intr, camToWorld, dst, nil)
+}
+
+// raycast is Raycast; hint, when not nil, holds per pixel the depth (z,
+// metres; 0 for none) of a frame just fused from camToWorld at this
+// resolution. A pixel's ray then starts hintMargin before the depth
+// its frame measured, where the surface just fused lies, instead of
+// marching through the free space in front of it, and marches from the
+// start of its interval as Raycast does when it finds no crossing from
+// there (also where it starts behind a surface). The two differ only
+// where the volume holds a surface more than hintMargin in front of
+// what the frame measured and free space behind it, and by where the
+// samples fall.
+func (v *Volume) raycast(ctx context.Context, intr mesh.Intrinsics, camToWorld mesh.Pose, dst *ModelMap, hint []float32) *ModelMap {
 	n := intr.Width * intr.Height
 	if dst == nil || len(dst.Points) != n {
 		dst = &ModelMap{Points: make([]r3.Vec, n), Normals: make([]r3.Vec, n)}
@@ -209,8 +223,14 @@ func (v *Volume) Raycast(ctx context.Context, intr mesh.Intrinsics, camToWorld m
 			if !ok || !(dst.near[tile] <= dst.far[tile]) {
 				continue
 			}
-			ray := camToWorld.Rotate(mesh.Normalize(intr.Ray(float64(x), float64(y))))
-			if p, nrm, hit := s.castRay(camToWorld.T, ray, lo, hi, float64(dst.near[tile]), float64(dst.far[tile])); hit {
+			dir := intr.Ray(float64(x), float64(y))
+			from := 0.0
+			if hint != nil && hint[i] > 0 {
+				// dir has unit z: the measured point lies |dir|·z along it.
+				from = float64(hint[i])*r3.Norm(dir) - hintMargin*v.mu
+			}
+			ray := camToWorld.Rotate(mesh.Normalize(dir))
+			if p, nrm, hit := s.castRay(camToWorld.T, ray, lo, hi, float64(dst.near[tile]), float64(dst.far[tile]), from); hit {
 				dst.Points[i], dst.Normals[i] = p, nrm
 			}
 		}
@@ -329,10 +349,20 @@ func (v *Volume) bounds() (lo, hi r3.Vec, ok bool) {
 	return lo, hi, true
 }
 
+// hintMargin is how far before a hinted depth (raycast) a ray starts,
+// in truncation distances: the surface just fused lies within the
+// depth noise and the pose's error of the measured depth, and a start a
+// truncation distance and a quarter in front of it is in free space or
+// in the band in front of the surface, where the march expects to
+// begin.
+const hintMargin = 1.25
+
 // castRay marches from origin o along unit direction d through the box
 // [lo, hi], between distances near and far, and returns the first
-// front-to-back zero crossing.
-func (s *sampler) castRay(o, d, lo, hi r3.Vec, near, far float64) (r3.Vec, r3.Vec, bool) {
+// front-to-back zero crossing. When from lies inside that stretch, it
+// marches from there first and from the start only when that finds no
+// crossing (raycast's hint).
+func (s *sampler) castRay(o, d, lo, hi r3.Vec, near, far, from float64) (r3.Vec, r3.Vec, bool) {
 	v := s.v
 	t0, t1, hit := slab(o, d, lo, hi)
 	if !hit {
@@ -340,6 +370,18 @@ func (s *sampler) castRay(o, d, lo, hi r3.Vec, near, far float64) (r3.Vec, r3.Ve
 	}
 	t0 = math.Max(math.Max(t0, v.opt.MinDepth), near)
 	t1 = math.Min(math.Min(t1, v.opt.MaxDepth*2), far)
+	if from > t0 && from < t1 {
+		if p, n, hit := s.march(o, d, from, t1); hit {
+			return p, n, true
+		}
+	}
+	return s.march(o, d, t0, t1)
+}
+
+// march steps along o + t·d from t0 to t1 and returns the first
+// front-to-back zero crossing.
+func (s *sampler) march(o, d r3.Vec, t0, t1 float64) (r3.Vec, r3.Vec, bool) {
+	v := s.v
 	vs := v.opt.VoxelSize
 	blockLen := vs * BlockSide
 	mu := v.mu

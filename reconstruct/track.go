@@ -234,6 +234,10 @@ type Tracker struct {
 	modelPose mesh.Pose
 	hasModel  bool
 	parts     []bandSums
+	// placed tells that the pyramid holds the frame the last Track
+	// placed, at placedPose (UpdateModel's hint).
+	placed     bool
+	placedPose mesh.Pose
 	// colour term: the keyframe and the new frame's luminance pyramid
 	key *keyframe
 	lum [pyramidLevels][]float32
@@ -266,8 +270,22 @@ func NewTracker(vol *Volume, intr mesh.Intrinsics, opt TrackOptions) (*Tracker, 
 
 // UpdateModel raycasts the volume from camToWorld; the next Track pairs
 // against it. Call it after integrating each placed frame.
+//
+// When camToWorld is where the last Track placed its frame, the rays
+// start near the depth that frame measured (at the model map's
+// resolution, a level of the tracker's pyramid) instead of marching
+// through the free space in front of it (Volume.raycast).
 func (t *Tracker) UpdateModel(ctx context.Context, camToWorld mesh.Pose) {
-	t.model = t.vol.Raycast(ctx, t.intr.Scaled(t.opt.ModelScale), camToWorld, t.model)
+	var hint []float32
+	if t.placed && camToWorld == t.placedPose {
+		for l := range t.levels {
+			if 1<<l == t.opt.ModelScale {
+				hint = t.levels[l].depth
+			}
+		}
+	}
+	t.placed = false
+	t.model = t.vol.raycast(ctx, t.intr.Scaled(t.opt.ModelScale), camToWorld, t.model, hint)
 	t.modelPose = camToWorld
 	t.hasModel = true
 }
@@ -293,6 +311,7 @@ func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predi
 // also aligns the frame's colour with the keyframe's. TrackResult's
 // KeyOverlap then tells when to set a new keyframe.
 func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []bool, predicted mesh.Pose) (TrackResult, error) {
+	t.placed = false
 	if !t.hasModel {
 		return TrackResult{}, fmt.Errorf("reconstruct: Track before UpdateModel")
 	}
@@ -367,6 +386,7 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 	if res.Lost {
 		res.CamToWorld = predicted
 	}
+	t.placed, t.placedPose = !res.Lost, res.CamToWorld
 	return res, nil
 }
 
