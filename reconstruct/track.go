@@ -18,7 +18,8 @@ const pyramidLevels = 3
 // TrackOptions tunes frame-to-model tracking.
 type TrackOptions struct {
 	// Iterations per pyramid level, finest first. KinectFusion uses 10, 5
-	// and 4 (from memory); the finest level here pairs every second pixel.
+	// and 4 (from memory); the two finer levels here pair every second
+	// pixel in both directions (levelStep).
 	// DEFAULT: {6, 5, 4}
 	Iterations [pyramidLevels]int
 	// MaxDistance rejects pairs farther apart (metres), finest first.
@@ -147,12 +148,17 @@ type trackSample struct {
 const trackBandRows = 8
 
 // levelStep is the pixel step tracking uses at pyramid level l: every
-// second pixel of the full image is plenty.
+// second pixel of the full image is plenty, and so of the half-size
+// level, which at every pixel cost as much as the full one. Pairing
+// every second pixel of the half-size level left the worst camera error
+// of the five 120-frame handheld demo sweeps (seed 11) within 0.1 mm of
+// every pixel's (bracket 4.53, bushing 1.28, nut 2.52, valve 0.89,
+// labelbox 2.10 mm; rotation at most 0.27°).
 func levelStep(l int) int {
-	if l == 0 {
-		return 2
+	if l == 2 {
+		return 1
 	}
-	return 1
+	return 2
 }
 
 // normalBins is the number of normal-direction bins: the six faces of a
