@@ -278,6 +278,22 @@ func (s *PlaneSystem) Merge(o *PlaneSystem) {
 	s.Pairs += o.Pairs
 }
 
+// Normal returns the system's normal matrix JᵀWJ in full: the
+// information the pairs carry about the six motion parameters (rotation
+// about the origin, then translation), for weighing this alignment
+// against others (a pose graph's edge).
+func (s *PlaneSystem) Normal() [6][6]float64 {
+	var m [6][6]float64
+	k := 0
+	for u := 0; u < 6; u++ {
+		for v := u; v < 6; v++ {
+			m[u][v], m[v][u] = s.a[k], s.a[k]
+			k++
+		}
+	}
+	return m
+}
+
 // RMS returns the weighted root-mean-square residual.
 func (s *PlaneSystem) RMS() float64 {
 	if s.W == 0 {

@@ -38,6 +38,10 @@ type FuseOptions struct {
 	// TrackMaxDepth bounds the scene volume's depth range (metres).
 	// DEFAULT: 1.5
 	TrackMaxDepth float64
+	// Loop corrects tracked handheld poses with a pose graph once every
+	// frame is placed (LoopOptions), before the part is fused.
+	// DEFAULT: DefaultLoopOptions()
+	Loop LoopOptions
 	// Axis estimates an uncalibrated turntable's axis.
 	// DEFAULT: DefaultAxisOptions()
 	Axis AxisOptions
@@ -127,6 +131,7 @@ func DefaultFuseOptions() FuseOptions {
 		Track:                handheldTrackOptions(),
 		TrackVoxel:           0.004,
 		TrackMaxDepth:        1.5,
+		Loop:                 DefaultLoopOptions(),
 		Axis:                 DefaultAxisOptions(),
 		AxisViews:            6,
 		PlateAxis:            DefaultPlateAxisOptions(),
@@ -202,12 +207,21 @@ type FuseReport struct {
 	AxisShift        float64 `json:"axis_shift_m,omitempty"`
 	Refined          int     `json:"refined_frames,omitempty"`
 	RefineMean       float64 `json:"refine_mean_shift_m,omitempty"`
-	Support          Plane   `json:"-"`
-	ROI              ROI     `json:"-"`
-	Blocks           int     `json:"blocks"`
-	Vertices         int     `json:"vertices"`
-	Triangles        int     `json:"triangles"`
-	CropRemoved      int     `json:"support_triangles_removed"`
+	// GraphNodes, GraphEdges and GraphDropped describe the pose graph
+	// of a tracked handheld sweep (LoopOptions): nodes, registration
+	// edges kept (odometry stand-ins included) and edges dropped as
+	// outliers; GraphCorrection is the largest move of a camera it made
+	// (metres).
+	GraphNodes      int     `json:"graph_nodes,omitempty"`
+	GraphEdges      int     `json:"graph_edges,omitempty"`
+	GraphDropped    int     `json:"graph_edges_dropped,omitempty"`
+	GraphCorrection float64 `json:"graph_correction_m,omitempty"`
+	Support         Plane   `json:"-"`
+	ROI             ROI     `json:"-"`
+	Blocks          int     `json:"blocks"`
+	Vertices        int     `json:"vertices"`
+	Triangles       int     `json:"triangles"`
+	CropRemoved     int     `json:"support_triangles_removed"`
 	// CropHeight is how far above the support the surface was cut
 	// (metres): the model's rim where the part stood lies on the plane
 	// Support moved up by it.
@@ -437,9 +451,9 @@ func (p *prefetcher) take() (*Frame, error) {
 	return r.f, r.err
 }
 
-// integrate fuses one placed frame into the part volume.
-func (f *fuser) integrate(ctx context.Context, fr *Frame, camToWorld mesh.Pose, alloc []bool) error {
-	im := fr.DepthImage()
+// measure fills f.weights and f.behind for a frame placed at
+// camToWorld (MeasurementBands).
+func (f *fuser) measure(fr *Frame, camToWorld mesh.Pose) {
 	wo := f.opt.Weights
 	if wo.BehindMin == 0 {
 		wo.BehindMin = 1.75 * f.opt.TSDF.VoxelSize
@@ -449,6 +463,12 @@ func (f *fuser) integrate(ctx context.Context, fr *Frame, camToWorld mesh.Pose, 
 		wo.Region = f.roi.ImageRect(fr.Intr, camToWorld, f.part.AllocReach(), f.opt.TSDF.MinDepth)
 	}
 	f.weights, f.behind = MeasurementBands(fr.Depth, fr.Intr, wo, f.weights, f.behind, true)
+}
+
+// integrate fuses one placed frame into the part volume.
+func (f *fuser) integrate(ctx context.Context, fr *Frame, camToWorld mesh.Pose, alloc []bool) error {
+	im := fr.DepthImage()
+	f.measure(fr, camToWorld)
 	im.Weight, im.Behind = f.weights, f.behind
 	im.Alloc = alloc
 	if _, err := f.part.Integrate(ctx, im, camToWorld); err != nil {
@@ -792,6 +812,11 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 		}
 		f.wholeWeights = true
 	}
+	// With a pose graph the part is fused once the poses are final.
+	graph := tr != nil && f.opt.Loop.NodeEvery > 0
+	var nodes []graphNode
+	var placedIdx []int
+	var placedPose []mesh.Pose
 	pf := f.prefetch(ctx, usable)
 	pose, prev := worldFromFirst, worldFromFirst
 	placed := 0
@@ -840,24 +865,83 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			prev, pose = pose, res.CamToWorld
 			newKey = res.KeyOverlap < f.opt.Track.KeyframeOverlap
 		}
-		f.alloc = f.mask(fr, pose, f.alloc)
-		if err := f.integrate(ctx, fr, pose, f.alloc); err != nil {
-			return err
+		if graph {
+			if placed%f.opt.Loop.NodeEvery == 0 {
+				n := graphNode{placed: placed, pose: pose, depth: slices.Clone(fr.Depth)}
+				if colour {
+					n.lum = slices.Clone(lum)
+				}
+				nodes = append(nodes, n)
+			}
+			placedIdx, placedPose = append(placedIdx, idx), append(placedPose, pose)
+		} else {
+			f.alloc = f.mask(fr, pose, f.alloc)
+			if err := f.integrate(ctx, fr, pose, f.alloc); err != nil {
+				return err
+			}
 		}
 		if scene != nil {
 			// The part's weights serve the scene too (only the bands behind
 			// the surface differ, and the scene keeps the full truncation).
+			if graph {
+				f.measure(fr, pose)
+			}
 			im := &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.weights}
 			if _, err := scene.Integrate(ctx, im, pose); err != nil {
 				return fmt.Errorf("reconstruct: %s: frame %d: %w", f.sw.Dir, idx, err)
 			}
 			tr.UpdateModel(ctx, pose)
+			if graph && placed%f.opt.Loop.NodeEvery == 0 {
+				m := tr.model
+				nodes[len(nodes)-1].model = &ModelMap{Intr: m.Intr, Points: slices.Clone(m.Points), Normals: slices.Clone(m.Normals)}
+			}
 			if colour && newKey {
 				tr.SetKeyframe(lum, fr.Depth, pose)
 			}
 		}
 		placed++
 		f.progress("fuse", k+1, len(usable))
+	}
+	if err := ctx.Err(); err != nil || !graph {
+		return err
+	}
+	return f.closeLoop(ctx, nodes, placedIdx, placedPose)
+}
+
+// closeLoop corrects the tracked poses with the pose graph over nodes
+// and fuses the placed frames into the part volume at the corrected
+// poses.
+func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []int, placedPose []mesh.Pose) error {
+	poses := placedPose
+	if len(nodes) >= 2 {
+		g := &poseGraph{nodes: nodes}
+		if err := g.build(ctx, f.first.Intr, f.opt.Track, f.opt.Loop, f.opt.Track.Workers); err != nil {
+			return fmt.Errorf("reconstruct: %s: %w", f.sw.Dir, err)
+		}
+		newNode, dropped, err := g.optimise(f.opt.Loop)
+		if err != nil {
+			return fmt.Errorf("reconstruct: %s: %w", f.sw.Dir, err)
+		}
+		poses = correctPoses(placedPose, nodes, newNode)
+		f.rep.GraphNodes, f.rep.GraphEdges, f.rep.GraphDropped = len(nodes), len(g.edges), dropped
+		for k := range poses {
+			f.rep.GraphCorrection = math.Max(f.rep.GraphCorrection, r3.Norm(r3.Sub(poses[k].T, placedPose[k].T)))
+		}
+	}
+	pf := f.prefetch(ctx, placedIdx)
+	for k, idx := range placedIdx {
+		fr, err := pf.take()
+		if err != nil {
+			if ctx.Err() != nil {
+				return ctx.Err()
+			}
+			return fmt.Errorf("reconstruct: %s: frame %d read again: %w", f.sw.Dir, idx, err)
+		}
+		f.alloc = f.mask(fr, poses[k], f.alloc)
+		if err := f.integrate(ctx, fr, poses[k], f.alloc); err != nil {
+			return err
+		}
+		f.progress("fuse again", k+1, len(placedIdx))
 	}
 	return ctx.Err()
 }

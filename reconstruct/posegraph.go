@@ -1,0 +1,411 @@
+package reconstruct
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"sync"
+
+	"gonum.org/v1/gonum/mat"
+	"gonum.org/v1/gonum/spatial/r3"
+
+	"github.com/scanfold/scanfold/mesh"
+)
+
+// LoopOptions tunes the pose graph that corrects a handheld sweep's
+// tracked poses once every frame is placed. Frame-to-model tracking
+// drifts: each frame is placed against a model built from the frames
+// before it, so a small error early is carried on, and the camera
+// comes back to its first views a few millimetres off. The graph's
+// nodes are every NodeEvery-th placed frame; its edges are direct
+// registrations of node pairs that see the same surface (depth and
+// colour, as tracking aligns a frame, with the one node's depth as the
+// model map and its colour as the keyframe), each weighted by the
+// information its pixel pairs carry; the first node stays put and the
+// others move to agree with all their edges at once (Gauss–Newton on
+// the poses; pose-graph optimisation as in Lu & Milios 1997,
+// "Globally consistent range scan alignment for environment mapping",
+// Autonomous Robots, DOI 10.1023/A:1008854305733, with dense RGB-D
+// registrations for edges as in Choi, Zhou & Koltun 2015, "Robust
+// reconstruction of indoor scenes", CVPR, DOI
+// 10.1109/CVPR.2015.7299195). Frames between nodes take their nodes'
+// corrections, interpolated.
+type LoopOptions struct {
+	// NodeEvery: every NodeEvery-th placed frame (and the first) is a
+	// node. 0 turns the pose graph off.
+	// DEFAULT: 5
+	NodeEvery int
+	// MaxPairTurn: node pairs whose cameras' orientations differ by less
+	// than this are registered with each other (radians).
+	// DEFAULT: 30° (0.5236)
+	MaxPairTurn float64
+	// MaxShift and MaxTurn: a registration that moves a node farther
+	// than this from where tracking put it relative to the other is
+	// refused (metres, radians): a wrong registration, not drift.
+	// DEFAULT: 0.015 m, 2° (0.0349 rad)
+	MaxShift, MaxTurn float64
+	// MinPairs: a registration with fewer pixel pairs at full
+	// resolution is refused (too little shared surface).
+	// DEFAULT: 2000
+	MinPairs int
+	// OutlierShift and OutlierTurn: after optimisation, a registration
+	// edge still farther than this from agreeing with the graph is
+	// dropped and the graph solved again (one at a time, worst first).
+	// DEFAULT: 0.003 m, 0.5° (0.00873 rad)
+	OutlierShift, OutlierTurn float64
+	// Iterations bounds the Gauss–Newton iterations of each solve.
+	// DEFAULT: 10
+	Iterations int
+}
+
+// DefaultLoopOptions returns the documented defaults.
+func DefaultLoopOptions() LoopOptions {
+	return LoopOptions{
+		NodeEvery:    5,
+		MaxPairTurn:  30 * math.Pi / 180,
+		MaxShift:     0.015,
+		MaxTurn:      2 * math.Pi / 180,
+		MinPairs:     2000,
+		OutlierShift: 0.003,
+		OutlierTurn:  0.5 * math.Pi / 180,
+		Iterations:   10,
+	}
+}
+
+// graphNode is a placed frame kept for the pose graph.
+type graphNode struct {
+	placed     int // its index among the placed frames
+	pose       mesh.Pose
+	depth, lum []float32
+	// model is the tracker's model map right after the node's frame was
+	// fused (raycast from pose), or nil: the frame's own depth serves
+	model *ModelMap
+}
+
+// graphEdge is a measured relative pose z = P_i⁻¹·P_j between nodes i
+// and j with its information (the normal matrix of the registration
+// that measured it, in world-frame small motions of node j).
+type graphEdge struct {
+	i, j int
+	z    mesh.Pose
+	info [6][6]float64
+	// odometry edges stand in for a failed registration between
+	// consecutive nodes (tracking's relative pose); never dropped
+	odometry bool
+}
+
+// twist returns the small motion of pose p (≈ identity) as (ω, t):
+// rotation vector, then translation, the order PlaneSystem uses.
+func twist(p mesh.Pose) [6]float64 {
+	axis, ang := p.AxisAngle()
+	return [6]float64{axis.X * ang, axis.Y * ang, axis.Z * ang, p.T.X, p.T.Y, p.T.Z}
+}
+
+// expTwist is twist's inverse: rotation by ω about the origin, then
+// translation by t.
+func expTwist(x [6]float64) mesh.Pose {
+	w := r3.Vec{X: x[0], Y: x[1], Z: x[2]}
+	return mesh.Pose{R: mesh.RotationFromAxisAngle(w, r3.Norm(w)), T: r3.Vec{X: x[3], Y: x[4], Z: x[5]}}
+}
+
+// setModelFromFrame makes a frame placed at camToWorld the model map
+// that Track pairs against (in place of a raycast of the volume): its
+// vertex and normal maps at the model's scale, in the world frame.
+func (t *Tracker) setModelFromFrame(depth []float32, camToWorld mesh.Pose) {
+	t.buildPyramid(depth, nil)
+	l := 0
+	for l < pyramidLevels-1 && 1<<(l+1) <= t.opt.ModelScale {
+		l++
+	}
+	lv := &t.levels[l]
+	n := len(lv.vert)
+	if t.model == nil || len(t.model.Points) != n {
+		t.model = &ModelMap{Points: make([]r3.Vec, n), Normals: make([]r3.Vec, n)}
+	}
+	t.model.Intr = lv.intr
+	for i, nv := range lv.norm {
+		if nv == (r3.Vec{}) {
+			t.model.Points[i], t.model.Normals[i] = r3.Vec{}, r3.Vec{}
+			continue
+		}
+		t.model.Points[i] = camToWorld.Apply(lv.vert[i])
+		t.model.Normals[i] = camToWorld.Rotate(nv)
+	}
+	t.modelPose = camToWorld
+	t.hasModel = true
+}
+
+// registerNodes aligns node b's frame with node a's, starting from
+// their current poses, and returns the edge a→b, or false when the
+// registration is refused (lost, too few pairs, or too far from the
+// start).
+func (t *Tracker) registerNodes(ctx context.Context, a, b *graphNode, lo LoopOptions) (graphEdge, bool, error) {
+	if a.model != nil {
+		t.model, t.modelPose, t.hasModel = a.model, a.pose, true
+	} else {
+		t.setModelFromFrame(a.depth, a.pose)
+	}
+	colour := t.opt.ColorSigma > 0 && a.lum != nil && b.lum != nil
+	lum := b.lum
+	if colour {
+		t.SetKeyframe(a.lum, a.depth, a.pose)
+	} else {
+		lum = nil
+	}
+	res, err := t.TrackColor(ctx, b.depth, lum, nil, b.pose)
+	if err != nil || res.Lost || res.Pairs < lo.MinPairs {
+		return graphEdge{}, false, err
+	}
+	moved := b.pose.Inv().Mul(res.CamToWorld)
+	if r3.Norm(moved.T) > lo.MaxShift || mesh.RotationAngle(moved, mesh.Identity()) > lo.MaxTurn {
+		return graphEdge{}, false, nil
+	}
+	// The information at the result: the last full-resolution system,
+	// depth pairs and (with a gain fitted first) the colour term.
+	sys, _ := t.associate(&t.levels[0], res.CamToWorld, t.modelPose.Inv(), t.opt.MaxDistance[0], math.Cos(t.opt.MaxNormalAngle), 2)
+	if colour {
+		var tmp mesh.PlaneSystem
+		sums, _ := t.photometric(&tmp, 0, res.CamToWorld, 2, [2]float64{1, 0})
+		t.photometric(&sys, 0, res.CamToWorld, 2, fitGain(sums))
+	}
+	return graphEdge{z: a.pose.Inv().Mul(res.CamToWorld), info: sys.Normal()}, true, nil
+}
+
+// poseGraph holds the nodes and edges of one optimisation.
+type poseGraph struct {
+	nodes []graphNode
+	edges []graphEdge
+}
+
+// build registers every pair of nodes whose cameras turned less than
+// MaxPairTurn apart, on workers goroutines (each with its own tracker),
+// and falls back to tracking's relative pose where consecutive nodes do
+// not register. Edges come out in pair order, whatever the timing.
+func (g *poseGraph) build(ctx context.Context, intr mesh.Intrinsics, topt TrackOptions, lo LoopOptions, workers int) error {
+	type pair struct{ i, j int }
+	var pairs []pair
+	for i := range g.nodes {
+		for j := i + 1; j < len(g.nodes); j++ {
+			if mesh.RotationAngle(g.nodes[i].pose, g.nodes[j].pose) < lo.MaxPairTurn {
+				pairs = append(pairs, pair{i, j})
+			}
+		}
+	}
+	topt.Workers = 1
+	got := make([]graphEdge, len(pairs))
+	ok := make([]bool, len(pairs))
+	errs := make([]error, len(pairs))
+	var wg sync.WaitGroup
+	next := make(chan int)
+	for w := 0; w < max(1, workers); w++ {
+		tr, err := NewTracker(nil, intr, topt)
+		if err != nil {
+			return err
+		}
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for k := range next {
+				p := pairs[k]
+				// the later node's model (more of the scene fused), the
+				// earlier node's frame
+				e, good, err := tr.registerNodes(ctx, &g.nodes[p.j], &g.nodes[p.i], lo)
+				e.i, e.j = p.j, p.i
+				got[k], ok[k], errs[k] = e, good, err
+			}
+		}()
+	}
+	for k := range pairs {
+		next <- k
+	}
+	close(next)
+	wg.Wait()
+	if err := errors.Join(errs...); err != nil {
+		return err
+	}
+	// Tracking's relative pose between consecutive nodes is an edge too
+	// (the tracker placed the frames between them against a model that
+	// held both), weighted like the registration of the same pair, or
+	// like an average registration where that failed; so a registration
+	// a millimetre off does not carry its nodes alone, and the graph
+	// stays connected.
+	pairInfo := make([]*[6][6]float64, len(g.nodes))
+	var sum [6][6]float64
+	for k, e := range got {
+		if !ok[k] {
+			continue
+		}
+		g.edges = append(g.edges, e)
+		if e.i == e.j+1 {
+			pairInfo[e.j] = &got[k].info
+		}
+		for u := range sum {
+			for v := range sum[u] {
+				sum[u][v] += e.info[u][v]
+			}
+		}
+	}
+	registered := len(g.edges)
+	for i := 0; i+1 < len(g.nodes); i++ {
+		e := graphEdge{i: i, j: i + 1, z: g.nodes[i].pose.Inv().Mul(g.nodes[i+1].pose), odometry: true}
+		switch {
+		case pairInfo[i] != nil:
+			e.info = *pairInfo[i]
+		case registered > 0:
+			for u := range sum {
+				for v := range sum[u] {
+					e.info[u][v] = sum[u][v] / float64(registered)
+				}
+			}
+		default:
+			for u := range e.info {
+				e.info[u][u] = 1
+			}
+		}
+		g.edges = append(g.edges, e)
+	}
+	return nil
+}
+
+// solve moves every node but the first to minimise
+// Σ ½·rᵀ·Λ·r over the edges, r the small motion P_i·z·P_j⁻¹ that would
+// carry node j to where edge (i, j) puts it and Λ the edge's
+// information. Perturbing P_i ← exp(δ_i)·P_i (world-frame small motions)
+// changes r by δ_i − δ_j to first order, so each Gauss–Newton step
+// solves a block-Laplacian system (Cholesky, gonum). It returns the
+// nodes' new poses.
+func (g *poseGraph) solve(iterations int) ([]mesh.Pose, error) {
+	n := len(g.nodes)
+	poses := make([]mesh.Pose, n)
+	for k := range g.nodes {
+		poses[k] = g.nodes[k].pose
+	}
+	if n < 2 {
+		return poses, nil
+	}
+	dim := 6 * (n - 1)
+	h := mat.NewSymDense(dim, nil)
+	grad := mat.NewVecDense(dim, nil)
+	var chol mat.Cholesky
+	var x mat.VecDense
+	for it := 0; it < iterations; it++ {
+		h.Zero()
+		grad.Zero()
+		for _, e := range g.edges {
+			r := twist(poses[e.i].Mul(e.z).Mul(poses[e.j].Inv()))
+			var lr [6]float64
+			for u := 0; u < 6; u++ {
+				for v := 0; v < 6; v++ {
+					lr[u] += e.info[u][v] * r[v]
+				}
+			}
+			// unknown block of node k is 6(k−1); node 0 is fixed
+			bi, bj := 6*(e.i-1), 6*(e.j-1)
+			for u := 0; u < 6; u++ {
+				if e.i > 0 {
+					grad.SetVec(bi+u, grad.AtVec(bi+u)+lr[u])
+				}
+				if e.j > 0 {
+					grad.SetVec(bj+u, grad.AtVec(bj+u)-lr[u])
+				}
+				for v := u; v < 6; v++ {
+					l := e.info[u][v]
+					if e.i > 0 {
+						h.SetSym(bi+u, bi+v, h.At(bi+u, bi+v)+l)
+					}
+					if e.j > 0 {
+						h.SetSym(bj+u, bj+v, h.At(bj+u, bj+v)+l)
+					}
+				}
+				if e.i > 0 && e.j > 0 {
+					for v := 0; v < 6; v++ {
+						// off-diagonal blocks: −Λ at (i, j) (and its
+						// transpose at (j, i), which SetSym writes too)
+						ii, jj := bi+u, bj+v
+						h.SetSym(ii, jj, h.At(ii, jj)-e.info[u][v])
+					}
+				}
+			}
+		}
+		if !chol.Factorize(h) {
+			return nil, fmt.Errorf("reconstruct: pose graph: the nodes are not all linked to the first (singular system)")
+		}
+		grad.ScaleVec(-1, grad)
+		if err := chol.SolveVecTo(&x, grad); err != nil {
+			return nil, fmt.Errorf("reconstruct: pose graph: %w", err)
+		}
+		var biggest float64
+		for k := 1; k < n; k++ {
+			var d [6]float64
+			for u := range d {
+				d[u] = x.AtVec(6*(k-1) + u)
+			}
+			poses[k] = expTwist(d).Mul(poses[k]).Orthonormalize()
+			biggest = math.Max(biggest, math.Hypot(math.Hypot(d[0], d[1]), d[2])*0.5+math.Hypot(math.Hypot(d[3], d[4]), d[5]))
+		}
+		if biggest < 1e-7 {
+			break
+		}
+	}
+	return poses, nil
+}
+
+// optimise solves the graph, then drops the registration edge that
+// agrees worst with the solution while one is beyond the outlier
+// limits, and solves again. It returns the nodes' poses and the number
+// of edges dropped.
+func (g *poseGraph) optimise(lo LoopOptions) ([]mesh.Pose, int, error) {
+	dropped := 0
+	for {
+		poses, err := g.solve(lo.Iterations)
+		if err != nil {
+			return nil, dropped, err
+		}
+		worst, worstK := 1.0, -1
+		for k, e := range g.edges {
+			if e.odometry {
+				continue
+			}
+			r := poses[e.i].Mul(e.z).Mul(poses[e.j].Inv())
+			// r moves node j; measure its shift at node j's camera
+			shift := r3.Norm(r3.Sub(r.Apply(poses[e.j].T), poses[e.j].T))
+			s := math.Max(shift/lo.OutlierShift, mesh.RotationAngle(r, mesh.Identity())/lo.OutlierTurn)
+			if s > worst {
+				worst, worstK = s, k
+			}
+		}
+		if worstK < 0 {
+			return poses, dropped, nil
+		}
+		g.edges = append(g.edges[:worstK], g.edges[worstK+1:]...)
+		dropped++
+	}
+}
+
+// correctPoses spreads the nodes' corrections (new·old⁻¹, world-frame
+// small motions) over the placed frames: a frame between two nodes
+// takes the corrections interpolated by its place between them, a
+// frame after the last node takes the last node's.
+func correctPoses(poses []mesh.Pose, nodes []graphNode, newNode []mesh.Pose) []mesh.Pose {
+	out := make([]mesh.Pose, len(poses))
+	corr := make([][6]float64, len(nodes))
+	for k := range nodes {
+		corr[k] = twist(newNode[k].Mul(nodes[k].pose.Inv()))
+	}
+	k := 0
+	for f := range poses {
+		for k+1 < len(nodes) && nodes[k+1].placed <= f {
+			k++
+		}
+		c := corr[k]
+		if k+1 < len(nodes) && f > nodes[k].placed {
+			s := float64(f-nodes[k].placed) / float64(nodes[k+1].placed-nodes[k].placed)
+			for u := range c {
+				c[u] = (1-s)*corr[k][u] + s*corr[k+1][u]
+			}
+		}
+		out[f] = expTwist(c).Mul(poses[f]).Orthonormalize()
+	}
+	return out
+}
