@@ -1,0 +1,265 @@
+package reconstruct
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"gonum.org/v1/gonum/diff/fd"
+	"gonum.org/v1/gonum/optimize"
+	"gonum.org/v1/gonum/spatial/r3"
+
+	"github.com/scanfold/scanfold/mesh"
+)
+
+// ringPoses returns n cameras on a circle of radius 0.5 m about the
+// origin, each looking at it: a handheld sweep's loop.
+func ringPoses(t *testing.T, n int) []mesh.Pose {
+	t.Helper()
+	out := make([]mesh.Pose, n)
+	for k := range out {
+		a := 2 * math.Pi * float64(k) / float64(n)
+		eye := r3.Vec{X: 0.5 * math.Cos(a), Y: 0.5 * math.Sin(a), Z: 0.3}
+		p, err := mesh.LookAt(eye, r3.Vec{}, r3.Vec{Z: 1})
+		if err != nil {
+			t.Fatal(err)
+		}
+		out[k] = p
+	}
+	return out
+}
+
+// smallMotion returns a random motion of up to shift metres and turn
+// radians.
+func smallMotion(rng *rand.Rand, shift, turn float64) mesh.Pose {
+	axis := r3.Vec{X: rng.NormFloat64(), Y: rng.NormFloat64(), Z: rng.NormFloat64()}
+	d := r3.Vec{X: rng.Float64() - 0.5, Y: rng.Float64() - 0.5, Z: rng.Float64() - 0.5}
+	return mesh.Pose{R: mesh.RotationFromAxisAngle(axis, turn*rng.Float64()), T: r3.Scale(2*shift, d)}
+}
+
+// ringGraph builds a graph over truth: consecutive nodes tied by
+// odometry edges and the last to the first by a registration, each
+// measurement disturbed by noise(), with the information of a
+// well-spread registration (translation 1/(1 mm)², rotation
+// 1/(0.05°)²); the nodes start at the chained odometry, as tracking
+// leaves them.
+func ringGraph(truth []mesh.Pose, noise func() mesh.Pose) *poseGraph {
+	var info [6][6]float64
+	for u := 0; u < 3; u++ {
+		info[u][u] = 1 / math.Pow(0.05*math.Pi/180, 2)
+		info[u+3][u+3] = 1 / (0.001 * 0.001)
+	}
+	n := len(truth)
+	g := &poseGraph{nodes: make([]graphNode, n)}
+	for k := 0; k < n; k++ {
+		g.nodes[k].placed = 5 * k
+	}
+	g.nodes[0].pose = truth[0]
+	for k := 0; k+1 < n; k++ {
+		z := truth[k].Inv().Mul(truth[k+1]).Mul(noise())
+		g.edges = append(g.edges, graphEdge{i: k, j: k + 1, z: z, info: info, odometry: true})
+		g.nodes[k+1].pose = g.nodes[k].pose.Mul(z)
+	}
+	loop := truth[n-1].Inv().Mul(truth[0]).Mul(noise())
+	g.edges = append(g.edges, graphEdge{i: n - 1, j: 0, z: loop, info: info})
+	return g
+}
+
+func poseDistance(a, b mesh.Pose) (shift, turn float64) {
+	return r3.Norm(r3.Sub(a.T, b.T)), mesh.RotationAngle(a, b)
+}
+
+func TestPoseGraphExactEdgesRecoverTruth(t *testing.T) {
+	truth := ringPoses(t, 12)
+	rng := rand.New(rand.NewPCG(1, 2))
+	g := ringGraph(truth, func() mesh.Pose { return mesh.Identity() })
+	// Start every node but the first (fixed) up to 5 mm / 1° off, the
+	// drift tracking leaves.
+	for k := 1; k < len(g.nodes); k++ {
+		g.nodes[k].pose = smallMotion(rng, 0.005, math.Pi/180).Mul(truth[k])
+	}
+	poses, err := g.solve(10)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k := range poses {
+		// Consistent edges: the optimum is the truth; Gauss–Newton on
+		// small motions converges to rounding (1 µm / 1e−5° is far
+		// below anything the sensor sees).
+		if s, a := poseDistance(poses[k], truth[k]); s > 1e-6 || a > 1e-7 {
+			t.Errorf("node %d: %.3g m / %.3g rad from truth", k, s, a)
+		}
+	}
+}
+
+// TestPoseGraphMatchesGeneralMinimiser checks the Gauss–Newton solution
+// of a noisy ring against gonum's BFGS minimiser (with finite-difference
+// gradients) run on the same cost from the same start: an independent
+// optimiser must reach the same minimum.
+func TestPoseGraphMatchesGeneralMinimiser(t *testing.T) {
+	truth := ringPoses(t, 6)
+	rng := rand.New(rand.NewPCG(3, 4))
+	g := ringGraph(truth, func() mesh.Pose { return smallMotion(rng, 0.001, 0.2*math.Pi/180) })
+	poses, err := g.solve(20)
+	if err != nil {
+		t.Fatal(err)
+	}
+	start := make([]mesh.Pose, len(g.nodes))
+	for k := range g.nodes {
+		start[k] = g.nodes[k].pose
+	}
+	at := func(x []float64, k int) mesh.Pose {
+		if k == 0 {
+			return start[0]
+		}
+		var d [6]float64
+		copy(d[:], x[6*(k-1):6*k])
+		// Scale the translation so both kinds of unknown are of a size
+		// (1 unit = 1 mm, 1 unit = 1 mrad), which BFGS needs.
+		for u := 3; u < 6; u++ {
+			d[u] *= 1e-3
+		}
+		for u := 0; u < 3; u++ {
+			d[u] *= 1e-3
+		}
+		return expTwist(d).Mul(start[k])
+	}
+	cost := func(x []float64) float64 {
+		c := 0.0
+		for _, e := range g.edges {
+			r := twist(at(x, e.i).Mul(e.z).Mul(at(x, e.j).Inv()))
+			for u := 0; u < 6; u++ {
+				for v := 0; v < 6; v++ {
+					c += 0.5 * r[u] * e.info[u][v] * r[v]
+				}
+			}
+		}
+		return c
+	}
+	p := optimize.Problem{
+		Func: cost,
+		Grad: func(grad, x []float64) { fd.Gradient(grad, cost, x, &fd.Settings{Formula: fd.Central}) },
+	}
+	x0 := make([]float64, 6*(len(g.nodes)-1))
+	res, err := optimize.Minimize(p, x0, &optimize.Settings{GradientThreshold: 1e-8}, &optimize.BFGS{})
+	if res == nil {
+		t.Fatalf("gonum BFGS: %v", err)
+	}
+	// A line search that stalls at the minimum (finite-difference
+	// gradients are noisy there) still leaves res at the best point; the
+	// comparison below is the test.
+	t.Logf("BFGS: %v after %d evaluations, cost %.6g", err, res.Stats.FuncEvaluations, res.F)
+	if cg, cb := cost(poseOffsets(start, poses)), res.F; cg > cb*(1+1e-6)+1e-9 {
+		t.Errorf("Gauss–Newton cost %.9g above BFGS's %.9g", cg, cb)
+	}
+	for k := range poses {
+		// Both minimise the same smooth cost; they agree to the BFGS
+		// stopping tolerance (a micrometre is a thousandth of the noise
+		// put on the edges).
+		if s, a := poseDistance(poses[k], at(res.X, k)); s > 1e-6 || a > 1e-5 {
+			t.Errorf("node %d: Gauss–Newton and BFGS %.3g m / %.3g rad apart", k, s, a)
+		}
+	}
+}
+
+// poseOffsets returns x for the cost in TestPoseGraphMatchesGeneralMinimiser
+// that moves start to poses (in its mm / mrad units).
+func poseOffsets(start, poses []mesh.Pose) []float64 {
+	x := make([]float64, 6*(len(start)-1))
+	for k := 1; k < len(start); k++ {
+		d := twist(poses[k].Mul(start[k].Inv()))
+		for u := range d {
+			x[6*(k-1)+u] = d[u] * 1e3
+		}
+	}
+	return x
+}
+
+// TestPoseGraphSpreadsLoopError: with odometry edges that all carry the
+// same small bias and an exact loop edge, the least-squares solution
+// spreads the loop's misclosure evenly over the n edges of the loop
+// (with equal weights each edge gives up 1/n of it, a property of
+// least squares on a cycle; from memory): node k ends about k/n of the
+// way back, so the worst error falls from the chain's full drift to a
+// fraction of one edge's bias.
+func TestPoseGraphSpreadsLoopError(t *testing.T) {
+	truth := ringPoses(t, 12)
+	// 0.05° of yaw (about the camera's y axis, the ring's up) too much
+	// on every edge: the chain's end turns 0.55° and, half a metre from
+	// the centre, lands millimetres off.
+	bias := mesh.Pose{R: mesh.RotationFromAxisAngle(r3.Vec{Y: 1}, 0.05*math.Pi/180)}
+	g := ringGraph(truth, func() mesh.Pose { return bias })
+	var before float64
+	for k := range g.nodes {
+		s, _ := poseDistance(g.nodes[k].pose, truth[k])
+		before = math.Max(before, s)
+	}
+	g.edges[len(g.edges)-1].z = truth[len(truth)-1].Inv().Mul(truth[0])
+	poses, err := g.solve(10)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var after float64
+	for k := range poses {
+		s, _ := poseDistance(poses[k], truth[k])
+		after = math.Max(after, s)
+	}
+	// Spread over the loop, the worst error must fall to well under half
+	// the chain's (measured 4.45 → 1.63 mm).
+	if before < 0.002 || after > before/2 {
+		t.Errorf("worst node error %.2f mm before, %.2f mm after (want > 2, under half)", before*1000, after*1000)
+	}
+}
+
+func TestPoseGraphDropsWrongRegistration(t *testing.T) {
+	truth := ringPoses(t, 12)
+	g := ringGraph(truth, func() mesh.Pose { return mesh.Identity() })
+	// A registration between nodes 3 and 9 that is 12 mm off (within
+	// the 15 mm a registration may move): it cannot agree with the rest
+	// and must go. Left in, it would pull the ring three quarters of the
+	// way toward it (two parallel chains of six equal edges against one)
+	// and keep a residual of 3 mm.
+	info := g.edges[0].info
+	wrong := truth[3].Inv().Mul(truth[9]).Mul(mesh.Pose{R: mesh.Identity3(), T: r3.Vec{Y: 0.012}})
+	g.edges = append(g.edges, graphEdge{i: 3, j: 9, z: wrong, info: info})
+	poses, dropped, err := g.optimise(DefaultLoopOptions())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if dropped != 1 {
+		t.Errorf("%d edges dropped, want 1", dropped)
+	}
+	for k := range poses {
+		if s, a := poseDistance(poses[k], truth[k]); s > 1e-6 || a > 1e-7 {
+			t.Errorf("node %d: %.3g m / %.3g rad from truth", k, s, a)
+		}
+	}
+}
+
+func TestPoseGraphDisconnected(t *testing.T) {
+	truth := ringPoses(t, 4)
+	g := ringGraph(truth, func() mesh.Pose { return mesh.Identity() })
+	g.edges = g.edges[:1] // node 2 and 3 tied to nothing
+	if _, err := g.solve(5); err == nil {
+		t.Error("a graph with unlinked nodes solved without an error")
+	}
+}
+
+func TestCorrectPosesInterpolates(t *testing.T) {
+	nodes := []graphNode{{placed: 0, pose: mesh.Identity()}, {placed: 4, pose: mesh.Identity()}}
+	shift := mesh.Pose{R: mesh.Identity3(), T: r3.Vec{X: 0.004}}
+	newNode := []mesh.Pose{mesh.Identity(), shift}
+	poses := make([]mesh.Pose, 7)
+	for k := range poses {
+		poses[k] = mesh.Identity()
+	}
+	got := correctPoses(poses, nodes, newNode)
+	// Frame k of 0..4 moves k/4 of node 1's 4 mm; frames after the last
+	// node move with it.
+	want := []float64{0, 1, 2, 3, 4, 4, 4}
+	for k, p := range got {
+		if math.Abs(p.T.X*1000-want[k]) > 1e-9 || p.T.Y != 0 || p.T.Z != 0 {
+			t.Errorf("frame %d moved to %v mm, want %.0f along x", k, r3.Scale(1000, p.T), want[k])
+		}
+	}
+}
