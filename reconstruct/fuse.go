@@ -314,6 +314,9 @@ func Fuse(ctx context.Context, sw *Sweep, opt FuseOptions) (*FuseResult, error) 
 		return nil, err
 	}
 	mark("integrate", t0)
+	if f.graphTime > 0 {
+		timings["pose graph"] = f.graphTime.Round(time.Millisecond).String()
+	}
 	if rep.FramesUsed == 0 {
 		return nil, fmt.Errorf("reconstruct: %s: every frame was skipped", sw.Dir)
 	}
@@ -358,6 +361,9 @@ type fuser struct {
 	// wholeWeights: weigh every pixel, not only those that can reach the
 	// part volume (the handheld scene volume reuses the weights)
 	wholeWeights bool
+	// graphTime is the time the pose graph took (registrations and
+	// solve), part of the "integrate" stage's
+	graphTime time.Duration
 }
 
 func (f *fuser) progress(stage string, done, total int) {
@@ -914,6 +920,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []int, placedPose []mesh.Pose) error {
 	poses := placedPose
 	if len(nodes) >= 2 {
+		t0 := time.Now()
 		g := &poseGraph{nodes: nodes}
 		if err := g.build(ctx, f.first.Intr, f.opt.Track, f.opt.Loop, f.opt.Track.Workers); err != nil {
 			return fmt.Errorf("reconstruct: %s: %w", f.sw.Dir, err)
@@ -923,6 +930,7 @@ func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []in
 			return fmt.Errorf("reconstruct: %s: %w", f.sw.Dir, err)
 		}
 		poses = correctPoses(placedPose, nodes, newNode)
+		f.graphTime = time.Since(t0)
 		f.rep.GraphNodes, f.rep.GraphEdges, f.rep.GraphDropped = len(nodes), len(g.edges), dropped
 		for k := range poses {
 			f.rep.GraphCorrection = math.Max(f.rep.GraphCorrection, r3.Norm(r3.Sub(poses[k].T, placedPose[k].T)))
