@@ -165,15 +165,16 @@ func (t *Tracker) registerNodes(ctx context.Context, a, b *graphNode, lo LoopOpt
 	if r3.Norm(moved.T) > lo.MaxShift || mesh.RotationAngle(moved, mesh.Identity()) > lo.MaxTurn {
 		return graphEdge{}, false, nil
 	}
-	// The information at the result: the last full-resolution system,
+	// The information at the result: a full-resolution pass's system,
 	// depth pairs and (with a gain fitted first) the colour term.
-	sys, _ := t.associate(&t.levels[0], res.CamToWorld, t.modelPose.Inv(), t.opt.MaxDistance[0], math.Cos(t.opt.MaxNormalAngle), 2)
+	wtm, cosMax := t.modelPose.Inv(), math.Cos(t.opt.MaxNormalAngle)
+	gain := [2]float64{1, 0}
 	if colour {
-		var tmp mesh.PlaneSystem
-		sums, _ := t.photometric(&tmp, 0, res.CamToWorld, 2, [2]float64{1, 0})
-		t.photometric(&sys, 0, res.CamToWorld, 2, fitGain(sums))
+		_, _, sums, _ := t.pass(0, res.CamToWorld, wtm, t.opt.MaxDistance[0], cosMax, true, gain)
+		gain = fitGain(sums)
 	}
-	return graphEdge{z: a.pose.Inv().Mul(res.CamToWorld), info: sys.Normal()}, true, nil
+	sys, _, _, _ := t.pass(0, res.CamToWorld, wtm, t.opt.MaxDistance[0], cosMax, colour, gain)
+	return graphEdge{z: a.pose.Inv().Mul(res.CamToWorld), info: sys.all.Normal()}, true, nil
 }
 
 // poseGraph holds the nodes and edges of one optimisation.
