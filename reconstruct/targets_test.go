@@ -49,6 +49,10 @@ func TestFuseTargets(t *testing.T) {
 			_, _, f2 := fScore(t, res.Mesh, seen, 0.002)
 			t.Logf("%s handheld: %d of %d frames placed, worst camera error %.2f mm / %.2f°, mean %.3f mm, F@2mm %.3f, %s",
 				name, res.Report.FramesUsed, res.Report.Frames, maxT*1000, maxR*180/math.Pi, mean*1000, f2, res.Report.Timings["total"])
+			if res.Report.FramesUsed != res.Report.Frames || maxT > 0.002 || maxR > 0.5*math.Pi/180 || mean > 0.001 || f2 < 0.92 {
+				t.Errorf("%s: %d of %d frames, camera %.2f mm / %.2f° (≤ 2 mm, 0.5°), mean %.3f mm (≤ 1), F@2mm %.3f (≥ 0.92)",
+					name, res.Report.FramesUsed, res.Report.Frames, maxT*1000, maxR*180/math.Pi, mean*1000, f2)
+			}
 		})
 	}
 }
