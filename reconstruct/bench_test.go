@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"hash/fnv"
 	"math"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"runtime"
@@ -597,4 +598,76 @@ func BenchmarkRaycast(b *testing.B) {
 	}
 	b.ReportMetric(float64(hits), "hits")
 	b.ReportMetric(float64(scene.NumBlocks()), "blocks")
+}
+
+// BenchmarkPoseGraph times the pose graph Fuse runs after tracking a
+// handheld sweep (registrations of node pairs, then the Gauss–Newton
+// solve with outlier removal) on the 60-frame bench sweep: nodes where
+// Fuse would take them, at their true poses moved by a random walk of
+// up to 0.3 mm / 0.02° a frame (the drift the graph takes out), each
+// with the scene volume's raycast after its frame was fused at its
+// true pose. "drift-mm" is the nodes' worst position error before the
+// graph, "worst-mm" after.
+func BenchmarkPoseGraph(b *testing.B) {
+	d := handheldFrames(b)
+	ctx := context.Background()
+	opt := DefaultFuseOptions()
+	so := opt.TSDF
+	so.VoxelSize, so.Truncation, so.MaxDepth = opt.TrackVoxel, 0, opt.TrackMaxDepth
+	scene, err := NewVolume(so)
+	if err != nil {
+		b.Fatal(err)
+	}
+	tr, err := NewTracker(scene, d.frames[0].Intr, opt.Track)
+	if err != nil {
+		b.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(5, 6))
+	var nodes []graphNode
+	var weights, behind []float32
+	drift := mesh.Identity()
+	for k, fr := range d.frames {
+		weights, behind = MeasurementBands(fr.Depth, fr.Intr, opt.Weights, weights, behind, true)
+		if _, err := scene.Integrate(ctx, &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: weights}, d.truth[k]); err != nil {
+			b.Fatal(err)
+		}
+		if k > 0 {
+			drift = smallMotion(rng, 0.0003, 0.02*math.Pi/180).Mul(drift)
+		}
+		pose := drift.Mul(d.truth[k])
+		if !opt.Loop.isNode(nodes, pose) {
+			continue
+		}
+		tr.UpdateModel(ctx, d.truth[k])
+		nodes = append(nodes, graphNode{placed: k, pose: pose, depth: fr.Depth, lum: Luminance(fr.Color, nil),
+			model: compactModel(tr.model, d.truth[k])})
+	}
+	var before float64
+	for _, n := range nodes {
+		before = math.Max(before, r3.Norm(r3.Sub(n.pose.T, d.truth[n.placed].T)))
+	}
+	var worst float64
+	var edges int
+	b.ResetTimer()
+	cpu := startCPU()
+	for i := 0; i < b.N; i++ {
+		g := &poseGraph{nodes: nodes}
+		if err := g.build(ctx, d.frames[0].Intr, opt.Track, opt.Loop, 0); err != nil {
+			b.Fatal(err)
+		}
+		poses, _, err := g.optimise(opt.Loop)
+		if err != nil {
+			b.Fatal(err)
+		}
+		edges = len(g.edges)
+		worst = 0
+		for k, p := range poses {
+			worst = math.Max(worst, r3.Norm(r3.Sub(p.T, d.truth[nodes[k].placed].T)))
+		}
+	}
+	cpu.report(b, b.N, "graph")
+	b.ReportMetric(float64(len(nodes)), "nodes")
+	b.ReportMetric(float64(edges), "edges")
+	b.ReportMetric(before*1000, "drift-mm")
+	b.ReportMetric(worst*1000, "worst-mm")
 }

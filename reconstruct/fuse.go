@@ -819,7 +819,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 		f.wholeWeights = true
 	}
 	// With a pose graph the part is fused once the poses are final.
-	graph := tr != nil && f.opt.Loop.NodeEvery > 0
+	graph := tr != nil && f.opt.Loop.NodeTurn > 0
 	var nodes []graphNode
 	var placedIdx []int
 	var placedPose []mesh.Pose
@@ -871,8 +871,9 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			prev, pose = pose, res.CamToWorld
 			newKey = res.KeyOverlap < f.opt.Track.KeyframeOverlap
 		}
+		isNode := graph && f.opt.Loop.isNode(nodes, pose)
 		if graph {
-			if placed%f.opt.Loop.NodeEvery == 0 {
+			if isNode {
 				n := graphNode{placed: placed, pose: pose, depth: slices.Clone(fr.Depth)}
 				if colour {
 					n.lum = slices.Clone(lum)
@@ -897,9 +898,8 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 				return fmt.Errorf("reconstruct: %s: frame %d: %w", f.sw.Dir, idx, err)
 			}
 			tr.UpdateModel(ctx, pose)
-			if graph && placed%f.opt.Loop.NodeEvery == 0 {
-				m := tr.model
-				nodes[len(nodes)-1].model = &ModelMap{Intr: m.Intr, Points: slices.Clone(m.Points), Normals: slices.Clone(m.Normals)}
+			if isNode {
+				nodes[len(nodes)-1].model = compactModel(tr.model, pose)
 			}
 			if colour && newKey {
 				tr.SetKeyframe(lum, fr.Depth, pose)
