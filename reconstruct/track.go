@@ -109,6 +109,9 @@ type TrackResult struct {
 	// paired with the keyframe's colour (TrackColor; 0 without one).
 	KeyOverlap float64
 	Pairs      int
+	// system is the last full-resolution step's system, depth pairs and
+	// colour rows (its normal matrix weighs a pose graph's edge)
+	system mesh.PlaneSystem
 }
 
 // level is one pyramid level of the incoming frame: camera-frame vertex
@@ -373,6 +376,7 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 	}
 	pose := a.pose
 	res.KeyOverlap = a.overlap
+	res.system = a.all
 	// The residual and pairs are those of the last step at full
 	// resolution, taken from the pose before it: that step moved the
 	// camera by less than StopShift/StopTurn, or by what the iterations
@@ -422,6 +426,7 @@ type alignment struct {
 	pose    mesh.Pose
 	overlap float64
 	last    mesh.PlaneSystem
+	all     mesh.PlaneSystem // last, with the colour rows
 	cands   int
 }
 
@@ -441,7 +446,7 @@ func (t *Tracker) align(ctx context.Context, start mesh.Pose, colour bool) (a al
 			sys, cands, sums, overlap := t.pass(l, pose, worldToModel, t.opt.MaxDistance[l], cosMax, colour, gain)
 			a.pose = pose
 			if l == 0 {
-				a.last, a.cands = sys.icp, cands
+				a.last, a.all, a.cands = sys.icp, sys.all, cands
 			}
 			if colour {
 				a.overlap = overlap
