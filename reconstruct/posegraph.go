@@ -186,6 +186,8 @@ func (t *Tracker) setModelFromFrame(depth []float32, camToWorld mesh.Pose) {
 		l++
 	}
 	lv := &t.levels[l]
+	// a model map needs a normal at every pixel, not only the sampled ones
+	vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, max(1, 3>>l), 1)
 	n := len(lv.vert)
 	if t.model == nil || len(t.model.Points) != n {
 		t.model = &ModelMap{Points: make([]r3.Vec, n), Normals: make([]r3.Vec, n)}
