@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"runtime"
 	"sync"
 
 	"gonum.org/v1/gonum/mat"
@@ -93,7 +94,7 @@ type graphNode struct {
 	pose       mesh.Pose
 	depth, lum []float32
 	// model is the tracker's model map right after the node's frame was
-	// fused (raycast from pose), or nil: the frame's own depth serves
+	// fused (raycast from pose)
 	model *nodeModel
 }
 
@@ -157,8 +158,8 @@ type graphEdge struct {
 	i, j int
 	z    mesh.Pose
 	info [6][6]float64
-	// odometry edges stand in for a failed registration between
-	// consecutive nodes (tracking's relative pose); never dropped
+	// odometry edges hold tracking's relative pose between consecutive
+	// nodes; never dropped
 	odometry bool
 }
 
@@ -176,46 +177,14 @@ func expTwist(x [6]float64) mesh.Pose {
 	return mesh.Pose{R: mesh.RotationFromAxisAngle(w, r3.Norm(w)), T: r3.Vec{X: x[3], Y: x[4], Z: x[5]}}
 }
 
-// setModelFromFrame makes a frame placed at camToWorld the model map
-// that Track pairs against (in place of a raycast of the volume): its
-// vertex and normal maps at the model's scale, in the world frame.
-func (t *Tracker) setModelFromFrame(depth []float32, camToWorld mesh.Pose) {
-	t.buildPyramid(depth, nil)
-	l := 0
-	for l < pyramidLevels-1 && 1<<(l+1) <= t.opt.ModelScale {
-		l++
-	}
-	lv := &t.levels[l]
-	// a model map needs a normal at every pixel, not only the sampled ones
-	vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, max(1, 3>>l), 1)
-	n := len(lv.vert)
-	if t.model == nil || len(t.model.Points) != n {
-		t.model = &ModelMap{Points: make([]r3.Vec, n), Normals: make([]r3.Vec, n)}
-	}
-	t.model.Intr = lv.intr
-	for i, nv := range lv.norm {
-		if nv == (r3.Vec{}) {
-			t.model.Points[i], t.model.Normals[i] = r3.Vec{}, r3.Vec{}
-			continue
-		}
-		t.model.Points[i] = camToWorld.Apply(lv.vert[i])
-		t.model.Normals[i] = camToWorld.Rotate(nv)
-	}
-	t.modelPose = camToWorld
-	t.hasModel = true
-}
-
-// registerNodes aligns node b's frame with node a's, starting from
-// their current poses, and returns the edge a→b, or false when the
+// registerNodes aligns node b's frame with node a's model map (and its
+// colour, as the keyframe), starting from their current poses, and
+// returns the edge a→b, or false when the
 // registration is refused (lost, too few pairs, or too far from the
 // start).
 func (t *Tracker) registerNodes(ctx context.Context, a, b *graphNode, lo LoopOptions) (graphEdge, bool, error) {
-	if a.model != nil {
-		t.model = a.model.expand(a.pose, t.model)
-		t.modelPose, t.hasModel = a.pose, true
-	} else {
-		t.setModelFromFrame(a.depth, a.pose)
-	}
+	t.model = a.model.expand(a.pose, t.model)
+	t.modelPose, t.hasModel = a.pose, true
 	colour := t.opt.ColorSigma > 0 && a.lum != nil && b.lum != nil
 	lum := b.lum
 	if colour {
@@ -245,9 +214,9 @@ type poseGraph struct {
 }
 
 // build registers every pair of nodes whose cameras turned less than
-// MaxPairTurn apart, on workers goroutines (each with its own tracker),
-// and falls back to tracking's relative pose where consecutive nodes do
-// not register. Edges come out in pair order, whatever the timing.
+// MaxPairTurn apart, on workers goroutines (0: one per core; each with
+// its own tracker), and ties consecutive nodes by tracking's relative
+// pose. Edges come out in pair order, whatever the timing.
 func (g *poseGraph) build(ctx context.Context, intr mesh.Intrinsics, topt TrackOptions, lo LoopOptions, workers int) error {
 	type pair struct{ i, j int }
 	var pairs []pair
@@ -264,7 +233,10 @@ func (g *poseGraph) build(ctx context.Context, intr mesh.Intrinsics, topt TrackO
 	errs := make([]error, len(pairs))
 	var wg sync.WaitGroup
 	next := make(chan int)
-	for w := 0; w < max(1, workers); w++ {
+	if workers <= 0 {
+		workers = runtime.GOMAXPROCS(0)
+	}
+	for w := 0; w < workers; w++ {
 		tr, err := NewTracker(nil, intr, topt)
 		if err != nil {
 			return err

@@ -1,6 +1,7 @@
 package reconstruct
 
 import (
+	"context"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -260,6 +261,48 @@ func TestCorrectPosesInterpolates(t *testing.T) {
 	for k, p := range got {
 		if math.Abs(p.T.X*1000-want[k]) > 1e-9 || p.T.Y != 0 || p.T.Z != 0 {
 			t.Errorf("frame %d moved to %v mm, want %.0f along x", k, r3.Scale(1000, p.T), want[k])
+		}
+	}
+}
+
+// TestFuseHandheldWorkers checks that a tracked handheld sweep, pose
+// graph included, comes out the same to the bit whatever the number of
+// goroutines (each registration runs on its own tracker; sums merge in
+// a fixed order).
+func TestFuseHandheldWorkers(t *testing.T) {
+	if testing.Short() {
+		t.Skip("renders a sweep")
+	}
+	opt := DefaultSynthOptions()
+	opt.Rig = RigHandheld
+	opt.Frames = 40
+	opt.Seed = 11
+	opt.Intrinsics = mesh.DefaultIntrinsics().Scaled(2)
+	dir := synthSweep(t, "valve", opt)
+	sw, err := LoadSweep(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var reps []FuseReport
+	for _, workers := range []int{1, 3} {
+		fo := DefaultFuseOptions()
+		fo.Track.Workers, fo.TSDF.Workers = workers, workers
+		res, err := Fuse(context.Background(), sw, fo)
+		if err != nil {
+			t.Fatal(err)
+		}
+		reps = append(reps, res.Report)
+	}
+	a, b := reps[0], reps[1]
+	if a.GraphEdges == 0 {
+		t.Fatalf("no pose graph (%d nodes): the test needs one", a.GraphNodes)
+	}
+	if a.GraphEdges != b.GraphEdges || a.GraphDropped != b.GraphDropped || a.Triangles != b.Triangles {
+		t.Errorf("1 worker: %d edges, %d dropped, %d triangles; 3 workers: %d, %d, %d", a.GraphEdges, a.GraphDropped, a.Triangles, b.GraphEdges, b.GraphDropped, b.Triangles)
+	}
+	for i := range a.CamToWorld {
+		if a.CamToWorld[i] != b.CamToWorld[i] {
+			t.Errorf("frame %d placed differently with 1 and 3 workers", i)
 		}
 	}
 }
