@@ -157,6 +157,7 @@ func DefaultFuseOptions() FuseOptions {
 func handheldTrackOptions() TrackOptions {
 	o := DefaultTrackOptions()
 	o.ColorSigma = 3
+	o.ColorSubsample = 2
 	return o
 }
 

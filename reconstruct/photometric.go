@@ -142,15 +142,16 @@ type colourTerm struct {
 	a, b     float64
 }
 
-// colourTerm returns the colour term of level l at camToWorld.
-func (t *Tracker) colourTerm(l int, camToWorld mesh.Pose, gain [2]float64) colourTerm {
+// colourTerm returns the colour term of level l at camToWorld, for
+// every step-th sample (each weighing step times more).
+func (t *Tracker) colourTerm(l int, camToWorld mesh.Pose, gain [2]float64, step int) colourTerm {
 	refSigma := axialSigma(0.5, 0)
 	sigma := t.opt.ColorSigma
 	return colourTerm{
 		kl:       &t.key.levels[l],
 		camToKey: newAffine(t.key.camToWorld.Inv().Mul(camToWorld)),
 		keyR:     newAffine(mesh.Pose{R: t.key.camToWorld.R}),
-		w0:       refSigma * refSigma / (sigma * sigma),
+		w0:       float64(step) * refSigma * refSigma / (sigma * sigma),
 		huber:    2 * sigma,
 		a:        gain[0],
 		b:        gain[1],
