@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"image"
 	"math"
 	"slices"
 	"sync"
@@ -118,6 +119,14 @@ type FuseOptions struct {
 	// earlier ones are fused.
 	// DEFAULT: 4
 	Prefetch int
+	// KeepBytes bounds the memory (bytes) that a tracked handheld sweep
+	// keeps of its frames for fusing the part once the pose graph has
+	// corrected their poses: the part's region of each frame, depth and
+	// colour (on the 640×480 demo sweeps about a quarter of the frame,
+	// 0.5–0.7 MB: 72–87 MB for 120 frames); frames beyond it are decoded
+	// again. 0 decodes them all again.
+	// DEFAULT: 256 MiB
+	KeepBytes int64
 	// Progress, when set, is called as work advances.
 	Progress func(stage string, done, total int)
 }
@@ -145,6 +154,7 @@ func DefaultFuseOptions() FuseOptions {
 		KeepLargest:          true,
 		Smooth:               10,
 		Prefetch:             4,
+		KeepBytes:            256 << 20,
 	}
 }
 
@@ -824,6 +834,8 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 	var nodes []graphNode
 	var placedIdx []int
 	var placedPose []mesh.Pose
+	var kept []*Frame // the part's region of each placed frame, or nil
+	var keptBytes int64
 	pf := f.prefetch(ctx, usable)
 	pose, prev := worldFromFirst, worldFromFirst
 	placed := 0
@@ -882,6 +894,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 				nodes = append(nodes, n)
 			}
 			placedIdx, placedPose = append(placedIdx, idx), append(placedPose, pose)
+			kept = append(kept, f.keepCrop(fr, pose, &keptBytes))
 		} else {
 			f.alloc = f.mask(fr, pose, f.alloc)
 			if err := f.integrate(ctx, fr, pose, f.alloc); err != nil {
@@ -912,13 +925,14 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 	if err := ctx.Err(); err != nil || !graph {
 		return err
 	}
-	return f.closeLoop(ctx, nodes, placedIdx, placedPose)
+	return f.closeLoop(ctx, nodes, placedIdx, placedPose, kept)
 }
 
 // closeLoop corrects the tracked poses with the pose graph over nodes
 // and fuses the placed frames into the part volume at the corrected
-// poses.
-func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []int, placedPose []mesh.Pose) error {
+// poses: from kept, their part's region kept in memory, or decoded again
+// where kept holds nil.
+func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []int, placedPose []mesh.Pose, kept []*Frame) error {
 	poses := placedPose
 	if len(nodes) >= 2 {
 		t0 := time.Now()
@@ -937,15 +951,25 @@ func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []in
 			f.rep.GraphCorrection = math.Max(f.rep.GraphCorrection, r3.Norm(r3.Sub(poses[k].T, placedPose[k].T)))
 		}
 	}
-	pf := f.prefetch(ctx, placedIdx)
+	var again []int
 	for k, idx := range placedIdx {
-		fr, err := pf.take()
-		if err != nil {
-			if ctx.Err() != nil {
-				return ctx.Err()
-			}
-			return fmt.Errorf("reconstruct: %s: frame %d read again: %w", f.sw.Dir, idx, err)
+		if kept[k] == nil {
+			again = append(again, idx)
 		}
+	}
+	pf := f.prefetch(ctx, again)
+	for k, idx := range placedIdx {
+		fr := kept[k]
+		if fr == nil {
+			var err error
+			if fr, err = pf.take(); err != nil {
+				if ctx.Err() != nil {
+					return ctx.Err()
+				}
+				return fmt.Errorf("reconstruct: %s: frame %d read again: %w", f.sw.Dir, idx, err)
+			}
+		}
+		kept[k] = nil // fused: its memory can go
 		f.alloc = f.mask(fr, poses[k], f.alloc)
 		if err := f.integrate(ctx, fr, poses[k], f.alloc); err != nil {
 			return err
@@ -953,6 +977,42 @@ func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []in
 		f.progress("fuse again", k+1, len(placedIdx))
 	}
 	return ctx.Err()
+}
+
+// keepCrop returns a copy of the part's region of fr placed at
+// camToWorld, with intrinsics moved to match (a camera whose image is
+// that region), or nil when it would take kept past KeepBytes. The
+// region is the one the part volume's integration reads
+// (ROI.ImageRect), widened by 10 mm for the pose graph's corrections
+// and by 4 pixels for the weights' stencil (WeightOptions.NormalSpan 3),
+// and starts on a multiple of 4 pixels so that every pixel sampled at
+// a stride (TSDFOptions.AllocStride) is sampled in the region too.
+func (f *fuser) keepCrop(fr *Frame, camToWorld mesh.Pose, kept *int64) *Frame {
+	r := f.roi.ImageRect(fr.Intr, camToWorld, f.part.AllocReach()+0.01, f.opt.TSDF.MinDepth)
+	r = image.Rect((r.Min.X-4)&^3, (r.Min.Y-4)&^3, r.Max.X+4, r.Max.Y+4).Intersect(image.Rect(0, 0, fr.Intr.Width, fr.Intr.Height))
+	w, h := r.Dx(), r.Dy()
+	if w <= 0 || h <= 0 {
+		r, w, h = image.Rect(0, 0, 1, 1), 1, 1
+	}
+	size := int64(w*h) * 8 // float32 depth and 4 bytes of colour
+	if *kept+size > f.opt.KeepBytes {
+		return nil
+	}
+	*kept += size
+	out := &Frame{Index: fr.Index, Intr: fr.Intr, Depth: make([]float32, w*h)}
+	out.Intr.Width, out.Intr.Height = w, h
+	out.Intr.Cx -= float64(r.Min.X)
+	out.Intr.Cy -= float64(r.Min.Y)
+	for y := 0; y < h; y++ {
+		copy(out.Depth[y*w:(y+1)*w], fr.Depth[(r.Min.Y+y)*fr.Intr.Width+r.Min.X:])
+	}
+	if fr.Color != nil {
+		out.Color = image.NewNRGBA(image.Rect(0, 0, w, h))
+		for y := 0; y < h; y++ {
+			copy(out.Color.Pix[y*out.Color.Stride:y*out.Color.Stride+4*w], fr.Color.Pix[(r.Min.Y+y)*fr.Color.Stride+4*r.Min.X:])
+		}
+	}
+	return out
 }
 
 // checkDepthScale refuses depth whose median is far outside the range

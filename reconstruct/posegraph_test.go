@@ -268,7 +268,8 @@ func TestCorrectPosesInterpolates(t *testing.T) {
 // TestFuseHandheldWorkers checks that a tracked handheld sweep, pose
 // graph included, comes out the same to the bit whatever the number of
 // goroutines (each registration runs on its own tracker; sums merge in
-// a fixed order).
+// a fixed order), and whether the part is fused from the regions of the
+// frames kept in memory or from the frames decoded again.
 func TestFuseHandheldWorkers(t *testing.T) {
 	if testing.Short() {
 		t.Skip("renders a sweep")
@@ -283,26 +284,48 @@ func TestFuseHandheldWorkers(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	var reps []FuseReport
-	for _, workers := range []int{1, 3} {
+	type run struct {
+		name    string
+		workers int
+		keep    int64
+	}
+	var results []*FuseResult
+	// one run changes both: either would show
+	runs := []run{{"1 worker", 1, 256 << 20}, {"3 workers, frames decoded again", 3, 0}}
+	for _, r := range runs {
 		fo := DefaultFuseOptions()
-		fo.Track.Workers, fo.TSDF.Workers = workers, workers
+		fo.Track.Workers, fo.TSDF.Workers = r.workers, r.workers
+		fo.KeepBytes = r.keep
 		res, err := Fuse(context.Background(), sw, fo)
 		if err != nil {
 			t.Fatal(err)
 		}
-		reps = append(reps, res.Report)
+		results = append(results, res)
 	}
-	a, b := reps[0], reps[1]
-	if a.GraphEdges == 0 {
-		t.Fatalf("no pose graph (%d nodes): the test needs one", a.GraphNodes)
+	if results[0].Report.GraphEdges == 0 {
+		t.Fatalf("no pose graph (%d nodes): the test needs one", results[0].Report.GraphNodes)
 	}
-	if a.GraphEdges != b.GraphEdges || a.GraphDropped != b.GraphDropped || a.Triangles != b.Triangles {
-		t.Errorf("1 worker: %d edges, %d dropped, %d triangles; 3 workers: %d, %d, %d", a.GraphEdges, a.GraphDropped, a.Triangles, b.GraphEdges, b.GraphDropped, b.Triangles)
-	}
-	for i := range a.CamToWorld {
-		if a.CamToWorld[i] != b.CamToWorld[i] {
-			t.Errorf("frame %d placed differently with 1 and 3 workers", i)
+	a := results[0]
+	for k, b := range results[1:] {
+		name := runs[k+1].name
+		ra, rb := a.Report, b.Report
+		if ra.GraphEdges != rb.GraphEdges || ra.GraphDropped != rb.GraphDropped {
+			t.Errorf("%s: %d edges, %d dropped; with 1 worker %d, %d", name, rb.GraphEdges, rb.GraphDropped, ra.GraphEdges, ra.GraphDropped)
+		}
+		for i := range ra.CamToWorld {
+			if ra.CamToWorld[i] != rb.CamToWorld[i] {
+				t.Errorf("%s: frame %d placed differently", name, i)
+			}
+		}
+		if len(a.Mesh.Vertices) != len(b.Mesh.Vertices) || len(a.Mesh.Faces) != len(b.Mesh.Faces) {
+			t.Errorf("%s: %d vertices, %d faces; with 1 worker %d, %d", name, len(b.Mesh.Vertices), len(b.Mesh.Faces), len(a.Mesh.Vertices), len(a.Mesh.Faces))
+			continue
+		}
+		for i := range a.Mesh.Vertices {
+			if a.Mesh.Vertices[i] != b.Mesh.Vertices[i] {
+				t.Errorf("%s: vertex %d at %v, with 1 worker %v", name, i, b.Mesh.Vertices[i], a.Mesh.Vertices[i])
+				break
+			}
 		}
 	}
 }
