@@ -219,10 +219,10 @@ type FuseReport struct {
 	Refined          int     `json:"refined_frames,omitempty"`
 	RefineMean       float64 `json:"refine_mean_shift_m,omitempty"`
 	// GraphNodes, GraphEdges and GraphDropped describe the pose graph
-	// of a tracked handheld sweep (LoopOptions): nodes, registration
-	// edges kept (odometry stand-ins included) and edges dropped as
-	// outliers; GraphCorrection is the largest move of a camera it made
-	// (metres).
+	// of a tracked handheld sweep (LoopOptions): nodes, edges kept
+	// (registrations and tracking's relative poses between consecutive
+	// nodes) and registrations dropped as outliers; GraphCorrection is
+	// the largest move of a camera it made (metres).
 	GraphNodes      int     `json:"graph_nodes,omitempty"`
 	GraphEdges      int     `json:"graph_edges,omitempty"`
 	GraphDropped    int     `json:"graph_edges_dropped,omitempty"`
@@ -953,6 +953,9 @@ func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []in
 	}
 	var again []int
 	for k, idx := range placedIdx {
+		if kept[k] != nil && f.roiMoved(placedPose[k], poses[k]) > cropMargin {
+			kept[k] = nil // moved beyond what its region allows for
+		}
 		if kept[k] == nil {
 			again = append(again, idx)
 		}
@@ -979,19 +982,36 @@ func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []in
 	return ctx.Err()
 }
 
+// cropMargin is how far (metres) the region of interest may move, seen
+// from a frame, between the pose its region was kept at and the pose it
+// is fused at (keepCrop).
+const cropMargin = 0.01
+
+// roiMoved bounds how far any point of the region of interest moves
+// relative to a camera whose pose changes from before to after: the
+// move of its centre plus the turn times its reach from there (radius,
+// height and the centre's own height above the support, summed).
+func (f *fuser) roiMoved(before, after mesh.Pose) float64 {
+	d := after.Mul(before.Inv())
+	reach := f.roi.Radius + f.roi.Top + math.Abs(f.roi.Plane.Distance(f.roi.Centre))
+	return r3.Norm(r3.Sub(d.Apply(f.roi.Centre), f.roi.Centre)) + mesh.RotationAngle(d, mesh.Identity())*reach
+}
+
 // keepCrop returns a copy of the part's region of fr placed at
 // camToWorld, with intrinsics moved to match (a camera whose image is
 // that region), or nil when it would take kept past KeepBytes. The
 // region is the one the part volume's integration reads
-// (ROI.ImageRect), widened by 10 mm for the pose graph's corrections
-// and by 4 pixels for the weights' stencil (WeightOptions.NormalSpan 3),
+// (ROI.ImageRect), widened by cropMargin for the pose graph's
+// corrections (a frame corrected more is decoded again) and by 4 pixels for the weights' stencil (WeightOptions.NormalSpan 3),
 // and starts on a multiple of 4 pixels so that every pixel sampled at
 // a stride (TSDFOptions.AllocStride) is sampled in the region too.
 func (f *fuser) keepCrop(fr *Frame, camToWorld mesh.Pose, kept *int64) *Frame {
-	r := f.roi.ImageRect(fr.Intr, camToWorld, f.part.AllocReach()+0.01, f.opt.TSDF.MinDepth)
+	r := f.roi.ImageRect(fr.Intr, camToWorld, f.part.AllocReach()+cropMargin, f.opt.TSDF.MinDepth)
 	r = image.Rect((r.Min.X-4)&^3, (r.Min.Y-4)&^3, r.Max.X+4, r.Max.Y+4).Intersect(image.Rect(0, 0, fr.Intr.Width, fr.Intr.Height))
 	w, h := r.Dx(), r.Dy()
 	if w <= 0 || h <= 0 {
+		// The region is out of view: nothing of the part volume projects
+		// into this frame, and a pixel stands in for the frame.
 		r, w, h = image.Rect(0, 0, 1, 1), 1, 1
 	}
 	size := int64(w*h) * 8 // float32 depth and 4 bytes of colour

@@ -329,3 +329,27 @@ func TestFuseHandheldWorkers(t *testing.T) {
 		}
 	}
 }
+
+// TestROIMoved checks the bound on how far the region of interest moves
+// under a pose correction: a shift moves it by the shift; a turn about
+// a line through its centre by at most the turn times its reach.
+func TestROIMoved(t *testing.T) {
+	f := &fuser{roi: ROI{Plane: Plane{Normal: r3.Vec{Z: 1}}, Centre: r3.Vec{X: 0.1, Y: 0.2, Z: 0.05}, Radius: 0.06, Top: 0.1}}
+	before := mesh.Identity()
+	shift := mesh.Pose{R: mesh.Identity3(), T: r3.Vec{X: 0.003, Y: -0.004}}
+	if got := f.roiMoved(before, shift); math.Abs(got-0.005) > 1e-12 {
+		t.Errorf("a 5 mm shift moved the region %.6f m", got)
+	}
+	// 0.5° about the vertical through the centre: the centre stays, the
+	// rim (6 cm out) moves 0.52 mm; the bound, reach 0.21 m, says 1.83 mm.
+	turn := 0.5 * math.Pi / 180
+	r := mesh.RotationFromAxisAngle(r3.Vec{Z: 1}, turn)
+	about := mesh.Pose{R: r, T: r3.Sub(f.roi.Centre, r.MulVec(f.roi.Centre))}
+	got := f.roiMoved(before, about)
+	if want := turn * 0.21; math.Abs(got-want) > 1e-9 {
+		t.Errorf("a 0.5° turn about the centre: bound %.6f m, want %.6f", got, want)
+	}
+	if rim := turn * 0.06; got < rim {
+		t.Errorf("bound %.6f m below the rim's move %.6f", got, rim)
+	}
+}
