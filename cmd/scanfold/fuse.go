@@ -100,6 +100,10 @@ func printFuseReport(w io.Writer, dir, out string, r *reconstruct.FuseReport, to
 	if r.Refined > 0 {
 		fmt.Fprintf(w, "  refined:    %d frames, mean shift %.2f mm\n", r.Refined, r.RefineMean*1000)
 	}
+	if r.GraphNodes > 0 {
+		fmt.Fprintf(w, "  loop:       pose graph of %d views and %d links (%d dropped as inconsistent) moved the tracked cameras by up to %.2f mm\n",
+			r.GraphNodes, r.GraphEdges, r.GraphDropped, r.GraphCorrection*1000)
+	}
 	fmt.Fprintf(w, "  voxels:     %s, %d blocks\n", units.FormatLength(r.VoxelSize), r.Blocks)
 	fmt.Fprintf(w, "  mesh:       %d vertices, %d triangles (%d support triangles and %d floating pieces removed)\n",
 		r.Vertices, r.Triangles, r.CropRemoved, r.Components)
@@ -110,7 +114,7 @@ func printFuseReport(w io.Writer, dir, out string, r *reconstruct.FuseReport, to
 		fmt.Fprintf(w, "  watertight: no; open boundary %.0f mm (the unseen underside, where the part stood)\n", r.Boundary*1000)
 	}
 	var stages []string
-	for _, k := range []string{"support", "integrate", "extract", "clean"} {
+	for _, k := range []string{"support", "integrate", "pose graph", "extract", "clean"} {
 		if v, ok := r.Timings[k]; ok {
 			stages = append(stages, k+" "+v)
 		}

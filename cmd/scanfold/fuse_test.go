@@ -7,8 +7,10 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/scanfold/scanfold/mesh"
+	"github.com/scanfold/scanfold/reconstruct"
 )
 
 // TestFuseCommand synthesises a small turntable sweep and fuses it
@@ -52,5 +54,26 @@ func TestFuseCommand(t *testing.T) {
 	code, _, errOut = runArgs(t, context.Background(), "fuse", filepath.Join(dir, "nope"), "--out", out)
 	if code != 1 || !strings.Contains(errOut, "nope") {
 		t.Errorf("missing sweep: exit %d, %q", code, errOut)
+	}
+}
+
+// TestPrintFuseReportLoop checks that a handheld fuse says what its pose
+// graph did, and a turntable fuse (no graph) says nothing of it.
+func TestPrintFuseReportLoop(t *testing.T) {
+	r := &reconstruct.FuseReport{Rig: reconstruct.RigHandheld, Frames: 120, FramesUsed: 120, VoxelSize: 0.002,
+		GraphNodes: 23, GraphEdges: 68, GraphDropped: 1, GraphCorrection: 0.00437,
+		Timings: map[string]string{"integrate": "9.8s", "pose graph": "1.1s"}}
+	var b strings.Builder
+	printFuseReport(&b, "sweep", "part.ply", r, 10*time.Second)
+	for _, w := range []string{"pose graph of 23 views and 68 links (1 dropped as inconsistent)", "up to 4.37 mm", "pose graph 1.1s"} {
+		if !strings.Contains(b.String(), w) {
+			t.Errorf("report lacks %q:\n%s", w, b.String())
+		}
+	}
+	r.GraphNodes = 0
+	b.Reset()
+	printFuseReport(&b, "sweep", "part.ply", r, 10*time.Second)
+	if strings.Contains(b.String(), "loop:") {
+		t.Errorf("a report without a pose graph mentions one:\n%s", b.String())
 	}
 }
