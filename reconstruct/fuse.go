@@ -905,7 +905,8 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			// The part's weights serve the scene too (only the bands behind
 			// the surface differ, and the scene keeps the full truncation).
 			if graph {
-				f.measure(fr, pose)
+				// the part is fused later: only the scene's weights
+				f.weights, _ = MeasurementBands(fr.Depth, fr.Intr, f.opt.Weights, f.weights, nil, false)
 			}
 			im := &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.weights}
 			if _, err := scene.Integrate(ctx, im, pose); err != nil {
