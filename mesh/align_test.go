@@ -332,35 +332,20 @@ func TestICPErrors(t *testing.T) {
 
 // BenchmarkICPPointToPlane aligns ≈2,000 points displaced by a small
 // motion against a 5,000-point target through the k-d tree.
-func BenchmarkICPPointToPlane(b *testing.B) {
-	rng := rand.New(rand.NewPCG(9, 10))
-	dst := boxSurfaceCloud(rng, 5000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
-	src := boxSurfaceCloud(rng, 2000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
-	src = src.Transform(PoseFromAxisAngle(r3.Vec{X: 1, Y: 2, Z: 3}, 3*math.Pi/180, r3.Vec{X: 0.002, Y: -0.001}))
-	tree := NewKDTree(dst.Points)
-	opt := DefaultICPOptions()
-	b.ResetTimer()
-	var res ICPResult
-	for i := 0; i < b.N; i++ {
-		var err error
-		res, err = ICPPointToPlane(src, dst, tree, Identity(), opt)
-		if err != nil {
-			b.Fatal(err)
-		}
-	}
-	b.ReportMetric(float64(res.Iterations), "iterations")
-}
+func BenchmarkICPPointToPlane(b *testing.B) { benchICP(b, false) }
 
 // BenchmarkICPSymmetric is BenchmarkICPPointToPlane with the symmetric
 // objective (ICPOptions.Symmetric).
-func BenchmarkICPSymmetric(b *testing.B) {
+func BenchmarkICPSymmetric(b *testing.B) { benchICP(b, true) }
+
+func benchICP(b *testing.B, symmetric bool) {
 	rng := rand.New(rand.NewPCG(9, 10))
 	dst := boxSurfaceCloud(rng, 5000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
 	src := boxSurfaceCloud(rng, 2000, r3.Vec{X: 0.06, Y: 0.04, Z: 0.03})
 	src = src.Transform(PoseFromAxisAngle(r3.Vec{X: 1, Y: 2, Z: 3}, 3*math.Pi/180, r3.Vec{X: 0.002, Y: -0.001}))
 	tree := NewKDTree(dst.Points)
 	opt := DefaultICPOptions()
-	opt.Symmetric = true
+	opt.Symmetric = symmetric
 	b.ResetTimer()
 	var res ICPResult
 	for i := 0; i < b.N; i++ {

@@ -158,6 +158,15 @@ func DefaultFuseOptions() FuseOptions {
 	}
 }
 
+// sceneTSDF returns the options of the handheld rig's scene volume,
+// which tracking raycasts: the part's, at TrackVoxel, with the default
+// truncation and reaching TrackMaxDepth.
+func (o FuseOptions) sceneTSDF() TSDFOptions {
+	so := o.TSDF
+	so.VoxelSize, so.Truncation, so.MaxDepth = o.TrackVoxel, 0, o.TrackMaxDepth
+	return so
+}
+
 // handheldTrackOptions are DefaultTrackOptions with the colour term on:
 // ColorSigma 3, the standard deviation of the difference of two 8-bit
 // readings each with the sensor model's colour noise of σ = 2 (2·√2 ≈
@@ -816,12 +825,8 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 	var scene *Volume
 	var tr *Tracker
 	if !given {
-		so := f.opt.TSDF
-		so.VoxelSize = f.opt.TrackVoxel
-		so.Truncation = 0
-		so.MaxDepth = f.opt.TrackMaxDepth
 		var err error
-		if scene, err = NewVolume(so); err != nil {
+		if scene, err = NewVolume(f.opt.sceneTSDF()); err != nil {
 			return err
 		}
 		if tr, err = NewTracker(scene, f.first.Intr, f.opt.Track); err != nil {
@@ -906,7 +911,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			// the surface differ, and the scene keeps the full truncation).
 			if graph {
 				// the part is fused later: only the scene's weights
-				f.weights, _ = MeasurementBands(fr.Depth, fr.Intr, f.opt.Weights, f.weights, nil, false)
+				f.weights = MeasurementWeights(fr.Depth, fr.Intr, f.opt.Weights, f.weights)
 			}
 			im := &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.weights}
 			if _, err := scene.Integrate(ctx, im, pose); err != nil {

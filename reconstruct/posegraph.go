@@ -21,10 +21,12 @@ import (
 // comes back to its first views a few millimetres off. The graph's
 // nodes are placed frames spread around the sweep (a new one each
 // NodeTurn of turn or NodeShift of travel); its edges are direct
-// registrations of node pairs that see the same surface (depth and
-// colour, as tracking aligns a frame, with the one node's depth as the
-// model map and its colour as the keyframe), each weighted by the
-// information its pixel pairs carry; the first node stays put and the
+// registrations of node pairs that see the same surface (the earlier
+// node's frame, depth and colour, aligned as tracking aligns a frame
+// with the later node's model map, kept from when it was tracked, and
+// its colour as the keyframe) and tracking's relative poses between
+// consecutive nodes, each weighted by the information its pixel pairs
+// carry; the first node stays put and the
 // others move to agree with all their edges at once (Gauss–Newton on
 // the poses; pose-graph optimisation as in Lu & Milios 1997,
 // "Globally consistent range scan alignment for environment mapping",
@@ -44,8 +46,9 @@ type LoopOptions struct {
 	NodeTurn, NodeShift float64
 	// MaxPairTurn: node pairs whose cameras' orientations differ by less
 	// than this are registered with each other (radians). On the five
-	// 120-frame handheld demo sweeps, nodes every 15° and pairs within
-	// 36° left the worst camera error at 1.08–1.54 mm; pairs within 30°
+	// 120-frame handheld demo sweeps (model map at 320×240), nodes every
+	// 15° and pairs within 36° left the worst camera error at 1.08–1.54
+	// mm; pairs within 30°
 	// (fewer, as nodes fall 15–18° apart) 1.14–2.32 mm; nodes every 12°
 	// and pairs within 30°, 1.11–2.12 mm.
 	// DEFAULT: 36° (0.6283)
@@ -109,9 +112,9 @@ func (lo LoopOptions) isNode(nodes []graphNode, pose mesh.Pose) bool {
 }
 
 // nodeModel keeps a model map compactly (16 bytes a pixel instead of
-// 48): each pixel's depth along its ray from the raycast's camera and
-// its world normal, in float32 (a tenth of a micrometre at half a
-// metre); expand rebuilds the map.
+// 48): each pixel's depth (z in the raycast's camera; the point lies on
+// the pixel's ray) and its normal in that camera, in float32 (steps of
+// 0.03 µm at half a metre); expand rebuilds the map for a camera pose.
 type nodeModel struct {
 	intr mesh.Intrinsics
 	z    []float32
@@ -127,7 +130,8 @@ func compactModel(m *ModelMap, camToWorld mesh.Pose) *nodeModel {
 			continue
 		}
 		c.z[i] = float32(worldToCam.Apply(m.Points[i]).Z)
-		c.n[i] = [3]float32{float32(nv.X), float32(nv.Y), float32(nv.Z)}
+		nc := worldToCam.Rotate(nv)
+		c.n[i] = [3]float32{float32(nc.X), float32(nc.Y), float32(nc.Z)}
 	}
 	return c
 }
@@ -146,7 +150,7 @@ func (c *nodeModel) expand(camToWorld mesh.Pose, dst *ModelMap) *ModelMap {
 			continue
 		}
 		dst.Points[i] = camToWorld.Apply(c.intr.BackProject(float64(i%w), float64(i/w), float64(z)))
-		dst.Normals[i] = r3.Vec{X: float64(c.n[i][0]), Y: float64(c.n[i][1]), Z: float64(c.n[i][2])}
+		dst.Normals[i] = camToWorld.Rotate(r3.Vec{X: float64(c.n[i][0]), Y: float64(c.n[i][1]), Z: float64(c.n[i][2])})
 	}
 	return dst
 }
@@ -184,7 +188,7 @@ func expTwist(x [6]float64) mesh.Pose {
 // start).
 func (t *Tracker) registerNodes(ctx context.Context, a, b *graphNode, lo LoopOptions) (graphEdge, bool, error) {
 	t.model = a.model.expand(a.pose, t.model)
-	t.modelPose, t.hasModel = a.pose, true
+	t.modelPose = a.pose
 	colour := t.opt.ColorSigma > 0 && a.lum != nil && b.lum != nil
 	lum := b.lum
 	if colour {

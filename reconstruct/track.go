@@ -255,7 +255,6 @@ type Tracker struct {
 	levels    [pyramidLevels]level
 	model     *ModelMap
 	modelPose mesh.Pose
-	hasModel  bool
 	parts     []bandSums
 	// placed tells that the pyramid holds the frame the last Track
 	// placed, at placedPose (UpdateModel's hint).
@@ -310,7 +309,6 @@ func (t *Tracker) UpdateModel(ctx context.Context, camToWorld mesh.Pose) {
 	t.placed = false
 	t.model = t.vol.raycast(ctx, t.intr.Scaled(t.opt.ModelScale), camToWorld, t.model, hint)
 	t.modelPose = camToWorld
-	t.hasModel = true
 }
 
 // Track places depth (metres, the tracker's intrinsics) starting from
@@ -336,7 +334,7 @@ func (t *Tracker) Track(ctx context.Context, depth []float32, mask []bool, predi
 // KeyOverlap then tells when to set a new keyframe.
 func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []bool, predicted mesh.Pose) (TrackResult, error) {
 	t.placed = false
-	if !t.hasModel {
+	if t.model == nil {
 		return TrackResult{}, fmt.Errorf("reconstruct: Track before UpdateModel")
 	}
 	if len(depth) != t.intr.Width*t.intr.Height {
