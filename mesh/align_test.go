@@ -392,3 +392,61 @@ func TestAddGradientRecoversMotion(t *testing.T) {
 		t.Errorf("recovered %v, want %v (%.2g m, %.2g rad off)", pose, truth, d, RotationAngle(pose, truth))
 	}
 }
+
+// TestPlaneSystemAddOrder checks the written-out accumulation against
+// the loop over the Jacobian row it replaced, to the bit: the same
+// products summed in the same order (tracking results must not move
+// with a speed change), and the normal matrix against JᵀWJ summed by
+// gonum's mat (a reference library) within rounding.
+func TestPlaneSystemAddOrder(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	var s PlaneSystem
+	var a [21]float64
+	var b [6]float64
+	jtj := mat.NewSymDense(6, nil)
+	for i := 0; i < 500; i++ {
+		c := r3.Vec{X: rng.NormFloat64(), Y: rng.NormFloat64(), Z: rng.NormFloat64()}
+		n := r3.Vec{X: rng.NormFloat64(), Y: rng.NormFloat64(), Z: rng.NormFloat64()}
+		r, w := rng.NormFloat64()*1e-3, rng.Float64()
+		s.add(r, c, n, w)
+		jr := [6]float64{c.X, c.Y, c.Z, n.X, n.Y, n.Z}
+		k := 0
+		for u := 0; u < 6; u++ {
+			wu := w * jr[u]
+			for v := u; v < 6; v++ {
+				a[k] += wu * jr[v]
+				k++
+			}
+			b[u] += wu * r
+		}
+		jtj.SymRankOne(jtj, w, mat.NewVecDense(6, jr[:]))
+	}
+	if s.a != a || s.b != b {
+		t.Fatalf("written-out sums differ from the loop's:\n%v\n%v\n%v\n%v", s.a, a, s.b, b)
+	}
+	nm := s.Normal()
+	for u := 0; u < 6; u++ {
+		for v := 0; v < 6; v++ {
+			if d := math.Abs(nm[u][v] - jtj.At(u, v)); d > 1e-9*math.Max(1, math.Abs(jtj.At(u, v))) {
+				t.Fatalf("normal matrix (%d,%d) = %g, gonum SymRankOne sums %g", u, v, nm[u][v], jtj.At(u, v))
+			}
+		}
+	}
+}
+
+// BenchmarkPlaneSystemAdd times one pair's accumulation, which tracking
+// runs for every pixel pair of every iteration.
+func BenchmarkPlaneSystemAdd(b *testing.B) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	ps := randomPoints(rng, 1024, 0.2)
+	var s PlaneSystem
+	n := r3.Unit(r3.Vec{X: 0.3, Y: -0.2, Z: 1})
+	b.ResetTimer()
+	for i := 0; i < b.N; i++ {
+		p := ps[i&1023]
+		s.Add(p, r3.Vec{}, n, 1)
+	}
+	if s.Pairs != b.N {
+		b.Fatal(s.Pairs)
+	}
+}

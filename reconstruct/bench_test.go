@@ -36,7 +36,7 @@ import (
 // with the load, the CPU time much less.
 const (
 	benchTurntableFrames = 72
-	benchHandheldFrames  = 60
+	benchHandheldFrames  = 120
 )
 
 // benchSweep returns the folder of a synthetic sweep of the bracket,

@@ -218,19 +218,24 @@ func normalBin(n r3.Vec) uint8 {
 // three, which then converge slowly and drift with the noise. A bin's
 // weight is the mean count per occupied bin over its own count, capped at
 // 10.
-func (lv *level) equaliseNormals() {
+func (lv *level) equaliseNormals(step int) {
 	var count [normalBins]int
 	occupied := 0
-	for i, n := range lv.norm {
-		if n == (r3.Vec{}) {
-			continue
+	w, h := lv.intr.Width, lv.intr.Height
+	for y := 0; y < h; y += step { // vertexNormalMaps gives no other pixel a normal
+		for x := 0; x < w; x += step {
+			i := y*w + x
+			n := lv.norm[i]
+			if n == (r3.Vec{}) {
+				continue
+			}
+			b := normalBin(n)
+			lv.bin[i] = b
+			if count[b] == 0 {
+				occupied++
+			}
+			count[b]++
 		}
-		b := normalBin(n)
-		lv.bin[i] = b
-		if count[b] == 0 {
-			occupied++
-		}
-		count[b]++
 	}
 	mean := float64(lv.valid) / math.Max(1, float64(occupied))
 	for b, c := range count {
@@ -352,7 +357,7 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 		copy(t.lum[0], lum)
 		for l := 1; l < pyramidLevels; l++ {
 			src := &t.levels[l-1]
-			downLuminance(t.lum[l-1], src.depth, src.intr.Width, src.intr.Height, t.lum[l])
+			downLuminance(t.lum[l-1], src.depth, src.intr.Width, src.intr.Height, t.lum[l], t.opt.Workers)
 		}
 	}
 	for l := range t.levels {
@@ -360,7 +365,7 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 		if colour {
 			ll = t.lum[l]
 		}
-		t.levels[l].gather(levelStep(l), ll)
+		t.levels[l].gather(levelStep(l), ll, t.opt.Workers)
 	}
 	res := TrackResult{CamToWorld: predicted}
 	a, lost, err := t.align(ctx, predicted, colour)
@@ -610,14 +615,40 @@ func (a *affine) rotate(x r3.Vec) r3.Vec {
 
 // gather fills lv.samples and lv.bands from the level's maps for pixel
 // step step; lum is the level's luminance, or nil without colour.
-func (lv *level) gather(step int, lum []float32) {
+func (lv *level) gather(step int, lum []float32, workers int) {
 	w, h := lv.intr.Width, lv.intr.Height
 	rows := (h + step - 1) / step
 	nBands := (rows + trackBandRows - 1) / trackBandRows
-	lv.samples = lv.samples[:0]
-	lv.bands = append(lv.bands[:0], 0)
 	refSigma2 := axialSigma(0.5, 0) * axialSigma(0.5, 0)
+	// Count each band's samples, place the bands one after another, then
+	// fill them: on all cores, with the order of one row-by-row pass.
+	if cap(lv.bands) < nBands+1 {
+		lv.bands = make([]int, nBands+1)
+	}
+	lv.bands = lv.bands[:nBands+1]
+	lv.bands[0] = 0
+	par.For(nBands, workers, func(k int) {
+		n := 0
+		for r := k * trackBandRows; r < min((k+1)*trackBandRows, rows); r++ {
+			row := lv.depth[r*step*w : (r*step+1)*w]
+			for x := 0; x < w; x += step {
+				if row[x] > 0 {
+					n++
+				}
+			}
+		}
+		lv.bands[k+1] = n
+	})
 	for k := 0; k < nBands; k++ {
+		lv.bands[k+1] += lv.bands[k]
+	}
+	total := lv.bands[nBands]
+	if cap(lv.samples) < total {
+		lv.samples = make([]trackSample, total)
+	}
+	lv.samples = lv.samples[:total]
+	par.For(nBands, workers, func(k int) {
+		si := lv.bands[k]
 		for r := k * trackBandRows; r < min((k+1)*trackBandRows, rows); r++ {
 			y := r * step
 			for x := 0; x < w; x += step {
@@ -633,11 +664,11 @@ func (lv *level) gather(step int, lum []float32) {
 				if lum != nil {
 					s.lum = lum[i]
 				}
-				lv.samples = append(lv.samples, s)
+				lv.samples[si] = s
+				si++
 			}
 		}
-		lv.bands = append(lv.bands, len(lv.samples))
-	}
+	})
 }
 
 // buildPyramid fills the levels from a full-resolution depth image:
@@ -662,43 +693,47 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 		// Normals from differences spanning about 3 mm at part
 		// distances: adjacent pixels of the full image are too noisy.
 		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, max(1, 3>>l), levelStep(l))
-		lv.equaliseNormals()
+		lv.equaliseNormals(levelStep(l))
 	}
 }
 
 // downDepth halves a depth image: each coarser depth averages the
 // valid pixels of a 2×2 block that lie within 3σ_z of the block's
-// nearest one (so edges are not blurred across a depth jump).
+// nearest one (so edges are not blurred across a depth jump). Rows are
+// shared among the tracker's workers; each output pixel depends on its
+// block alone.
 func (t *Tracker) downDepth(src []float32, sw int, dst []float32, dw, dh int) {
-	for y := 0; y < dh; y++ {
-		for x := 0; x < dw; x++ {
-			var zs [4]float32
-			near := float32(math.Inf(1))
-			for k := 0; k < 4; k++ {
-				z := src[(2*y+k/2)*sw+2*x+k%2]
-				zs[k] = z
-				if z > 0 && z < near {
-					near = z
-				}
-			}
-			var sum float32
-			cnt := 0
-			if !math.IsInf(float64(near), 1) {
-				limit := 3 * float32(axialSigma(float64(near), 0))
-				for _, z := range zs {
-					if z > 0 && z-near <= limit {
-						sum += z
-						cnt++
+	par.For((dh+bandRows-1)/bandRows, t.opt.Workers, func(b int) {
+		for y := b * bandRows; y < min(dh, (b+1)*bandRows); y++ {
+			for x := 0; x < dw; x++ {
+				var zs [4]float32
+				near := float32(math.Inf(1))
+				for k := 0; k < 4; k++ {
+					z := src[(2*y+k/2)*sw+2*x+k%2]
+					zs[k] = z
+					if z > 0 && z < near {
+						near = z
 					}
 				}
-			}
-			if cnt > 0 {
-				dst[y*dw+x] = sum / float32(cnt)
-			} else {
-				dst[y*dw+x] = 0
+				var sum float32
+				cnt := 0
+				if !math.IsInf(float64(near), 1) {
+					limit := 3 * float32(axialSigma(float64(near), 0))
+					for _, z := range zs {
+						if z > 0 && z-near <= limit {
+							sum += z
+							cnt++
+						}
+					}
+				}
+				if cnt > 0 {
+					dst[y*dw+x] = sum / float32(cnt)
+				} else {
+					dst[y*dw+x] = 0
+				}
 			}
 		}
-	}
+	})
 }
 
 // vertexNormalMaps back-projects depth into vert and estimates normals
