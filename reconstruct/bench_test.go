@@ -34,6 +34,11 @@ import (
 // Each benchmark reports, beside the wall time, the process's CPU time
 // per unit of work (cpu-ms/...): on a shared machine the wall time grows
 // with the load, the CPU time much less.
+//
+// The sweeps have the frame counts the targets are set on: 72
+// frames for the turntable, 120 for the handheld rig (3° of camera turn
+// a frame). The handheld benchmarks ran on 60 frames before 2026-12-02;
+// BENCHMARKS.md keeps both.
 const (
 	benchTurntableFrames = 72
 	benchHandheldFrames  = 120
@@ -409,7 +414,7 @@ func BenchmarkFuseTurntable(b *testing.B) {
 	benchFuse(b, benchSweep(b, RigTurntable, benchTurntableFrames))
 }
 
-// BenchmarkFuseHandheld runs the whole Fuse of a 60-frame handheld sweep
+// BenchmarkFuseHandheld runs the whole Fuse of a 120-frame handheld sweep
 // without poses (frame-to-model tracking against a 4 mm scene volume),
 // from its PNG files; frames/s is the figure against the target of 15
 // on two cores.
@@ -417,7 +422,7 @@ func BenchmarkFuseHandheld(b *testing.B) {
 	benchFuse(b, benchSweep(b, RigHandheld, benchHandheldFrames))
 }
 
-// handheldFrames decodes the 60-frame handheld sweep with its true
+// handheldFrames decodes the 120-frame handheld sweep with its true
 // poses (truth/poses.json) and the region of interest Fuse would set
 // from its first frame.
 type handheldData struct {
@@ -602,7 +607,7 @@ func BenchmarkRaycast(b *testing.B) {
 
 // BenchmarkPoseGraph times the pose graph Fuse runs after tracking a
 // handheld sweep (registrations of node pairs, then the Gauss–Newton
-// solve with outlier removal) on the 60-frame bench sweep: nodes where
+// solve with outlier removal) on the 120-frame bench sweep: nodes where
 // Fuse would take them, at their true poses moved by a random walk of
 // up to 0.3 mm / 0.02° a frame (the drift the graph takes out), each
 // with the scene volume's raycast after its frame was fused at its

@@ -702,35 +702,38 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 // nearest one (so edges are not blurred across a depth jump). Rows are
 // shared among the tracker's workers; each output pixel depends on its
 // block alone.
+var inf32 = float32(math.Inf(1))
+
 func (t *Tracker) downDepth(src []float32, sw int, dst []float32, dw, dh int) {
 	par.For((dh+bandRows-1)/bandRows, t.opt.Workers, func(b int) {
 		for y := b * bandRows; y < min(dh, (b+1)*bandRows); y++ {
-			for x := 0; x < dw; x++ {
-				var zs [4]float32
-				near := float32(math.Inf(1))
-				for k := 0; k < 4; k++ {
-					z := src[(2*y+k/2)*sw+2*x+k%2]
-					zs[k] = z
+			top := src[2*y*sw : 2*y*sw+2*dw]
+			bot := src[(2*y+1)*sw : (2*y+1)*sw+2*dw]
+			out := dst[y*dw : (y+1)*dw]
+			for x := range out {
+				// The block's pixels in the order top-left, top-right,
+				// bottom-left, bottom-right (the order of the sum).
+				zs := [4]float32{top[2*x], top[2*x+1], bot[2*x], bot[2*x+1]}
+				near := inf32
+				for _, z := range zs {
 					if z > 0 && z < near {
 						near = z
 					}
 				}
+				if near == inf32 { // no valid pixel (+Inf counts as none)
+					out[x] = 0
+					continue
+				}
+				limit := 3 * float32(axialSigma(float64(near), 0))
 				var sum float32
 				cnt := 0
-				if !math.IsInf(float64(near), 1) {
-					limit := 3 * float32(axialSigma(float64(near), 0))
-					for _, z := range zs {
-						if z > 0 && z-near <= limit {
-							sum += z
-							cnt++
-						}
+				for _, z := range zs {
+					if z > 0 && z-near <= limit {
+						sum += z
+						cnt++
 					}
 				}
-				if cnt > 0 {
-					dst[y*dw+x] = sum / float32(cnt)
-				} else {
-					dst[y*dw+x] = 0
-				}
+				out[x] = sum / float32(cnt)
 			}
 		}
 	})
