@@ -546,7 +546,8 @@ func BenchmarkHandheldLoop(b *testing.B) {
 			if _, err := part.Integrate(ctx, im, pose); err != nil {
 				b.Fatal(err)
 			}
-			sim := &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.weights}
+			f.sceneWeights, f.sceneBehind = opt.sceneBands(fr.Depth, fr.Intr, f.sceneWeights, f.sceneBehind)
+			sim := &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.sceneWeights, Behind: f.sceneBehind}
 			if _, err := scene.Integrate(ctx, sim, pose); err != nil {
 				b.Fatal(err)
 			}
@@ -580,7 +581,7 @@ func BenchmarkRaycast(b *testing.B) {
 	for k, fr := range d.frames[:n] {
 		im := fr.DepthImage()
 		im.Color = nil
-		im.Weight = MeasurementWeights(fr.Depth, fr.Intr, opt.Weights, nil)
+		im.Weight, im.Behind = opt.sceneBands(fr.Depth, fr.Intr, nil, nil)
 		if _, err := scene.Integrate(ctx, im, d.truth[k]); err != nil {
 			b.Fatal(err)
 		}
@@ -627,11 +628,11 @@ func BenchmarkPoseGraph(b *testing.B) {
 	}
 	rng := rand.New(rand.NewPCG(5, 6))
 	var nodes []graphNode
-	var weights []float32
+	var weights, behind []float32
 	drift := mesh.Identity()
 	for k, fr := range d.frames {
-		weights = MeasurementWeights(fr.Depth, fr.Intr, opt.Weights, weights)
-		if _, err := scene.Integrate(ctx, &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: weights}, d.truth[k]); err != nil {
+		weights, behind = opt.sceneBands(fr.Depth, fr.Intr, weights, behind)
+		if _, err := scene.Integrate(ctx, &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: weights, Behind: behind}, d.truth[k]); err != nil {
 			b.Fatal(err)
 		}
 		if k > 0 {

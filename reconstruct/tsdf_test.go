@@ -253,3 +253,56 @@ func TestFusedSphereAreaVolume(t *testing.T) {
 	}
 	t.Logf("area error %.2f%%, volume error %.2f%%, %d triangles", 100*(area-wantA)/wantA, 100*(volume-wantV)/wantV, len(m.Faces))
 }
+
+// TestSceneThinWall fuses a 3 mm plate seen face-on from both sides
+// into the handheld rig's scene volume (4 mm voxels, 16 mm truncation)
+// and raycasts its front face. Updating the whole truncation behind
+// each surface, the back views write "inside" over the free space in
+// front of the front face, up to the truncation minus the thickness
+// (13 mm) away, and the front face moves or vanishes; with the scene's
+// bands (FuseOptions.TrackBehind, 1.5 voxels = 6 mm) the back views
+// reach at most 6 − 3 = 3 mm in front of it, so the face stays within
+// that plus half a voxel (the TSDF's interpolation, as in
+// TestRaycastSphere).
+func TestSceneThinWall(t *testing.T) {
+	const front, thick = 0.5, 0.003
+	intr := testIntr
+	frontView := mesh.Identity()
+	// Looking along −z from 0.5 m behind the back face.
+	backView := mesh.PoseFromAxisAngle(r3.Vec{Y: 1}, math.Pi, r3.Vec{Z: front + thick + 0.5})
+	depth := make([]float32, intr.Width*intr.Height)
+	for i := range depth {
+		depth[i] = 0.5 // both faces 0.5 m away along each view's axis
+	}
+	faceError := func(fo FuseOptions) float64 {
+		vol, err := NewVolume(fo.sceneTSDF())
+		if err != nil {
+			t.Fatal(err)
+		}
+		w, b := fo.sceneBands(depth, intr, nil, nil)
+		for range 4 {
+			for _, view := range []mesh.Pose{frontView, backView} {
+				if _, err := vol.Integrate(context.Background(), &DepthImage{Intr: intr, Depth: depth, Weight: w, Behind: b}, view); err != nil {
+					t.Fatal(err)
+				}
+			}
+		}
+		m := vol.Raycast(context.Background(), intr, frontView, nil)
+		i := intr.Height/2*intr.Width + intr.Width/2
+		if !m.Valid(i) {
+			return math.Inf(1)
+		}
+		return math.Abs(m.Points[i].Z - front)
+	}
+	fo := DefaultFuseOptions()
+	with := faceError(fo)
+	fo.TrackBehind = 0
+	without := faceError(fo)
+	t.Logf("front face off by %.2f mm with the scene's bands, %.2f mm with the whole truncation", with*1000, without*1000)
+	if bound := DefaultFuseOptions().TrackBehind*fo.TrackVoxel - thick + fo.TrackVoxel/2; with > bound {
+		t.Errorf("front face off by %.2f mm with the scene's bands, want ≤ %.2f mm", with*1000, bound*1000)
+	}
+	if without < 2*with {
+		t.Errorf("front face off by %.2f mm with the whole truncation: the thin wall should fare much worse than with bands (%.2f mm)", without*1000, with*1000)
+	}
+}
