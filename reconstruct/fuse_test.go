@@ -281,8 +281,8 @@ func TestFuseHandheldAgainstTruth(t *testing.T) {
 	// the resolution the pose graph left 1.92 mm / 0.22°, and 2.23 mm /
 	// 0.20° with the faster tracking defaults (ModelScale 4,
 	// ColorSubsample 2, which at 320×240 thin the model map and the
-	// colour term further); 2.77 mm / 0.25° without the graph; 2.32 mm /
-	// 0.27° since the scene volume keeps bands behind the surface
+	// colour term further); 2.77 mm / 0.25° without the graph; 2.22 mm /
+	// 0.26° since the scene volume keeps bands behind the surface
 	// (FuseOptions.TrackBehind). 3 mm /
 	// 0.5° leaves room for rounding across platforms but not for the
 	// loop's drift.

@@ -260,9 +260,9 @@ func TestFusedSphereAreaVolume(t *testing.T) {
 // each surface, the back views write "inside" over the free space in
 // front of the front face, up to the truncation minus the thickness
 // (13 mm) away, and the front face moves or vanishes; with the scene's
-// bands (FuseOptions.TrackBehind, 1.5 voxels = 6 mm) the back views
-// reach at most 6 − 3 = 3 mm in front of it, so the face stays within
-// that plus half a voxel (the TSDF's interpolation, as in
+// bands (FuseOptions.TrackBehind, 1 voxel = 4 mm across the surface)
+// the back views reach at most 4 − 3 = 1 mm in front of it, so the face
+// stays within that plus half a voxel (the TSDF's interpolation, as in
 // TestRaycastSphere).
 func TestSceneThinWall(t *testing.T) {
 	const front, thick = 0.5, 0.003

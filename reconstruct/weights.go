@@ -52,6 +52,12 @@ type WeightOptions struct {
 	// gave 0.32 mm mean error where the full truncation gave 0.69 mm.
 	// DEFAULT: 1.5, 0 (Fuse sets BehindMin to 1.75 voxels)
 	BehindSigmas, BehindMin float64
+	// BehindCos is the smallest cos θ the band is divided by along the
+	// ray (the cap above is 1/BehindCos); 0 means 0.7. Below 0.7 an
+	// oblique surface keeps a thicker shell behind it, which a raycast's
+	// trilinear samples need (FuseOptions.TrackBehind).
+	// DEFAULT: 0 (0.7)
+	BehindCos float64
 	// Region limits the work to the pixels inside it (a caller that
 	// knows which pixels can reach its volume, ROI.ImageRect); pixels
 	// outside weigh 0. The empty rectangle means the whole image.
@@ -104,8 +110,12 @@ func MeasurementBands(depth []float32, intr mesh.Intrinsics, opt WeightOptions, 
 	}
 	pw := pixelWeigher{
 		intr: intr, opt: opt,
-		ref2:   axialSigma(0.5, 0) * axialSigma(0.5, 0),
-		cosMax: math.Cos(opt.MaxAngle),
+		ref2:      axialSigma(0.5, 0) * axialSigma(0.5, 0),
+		cosMax:    math.Cos(opt.MaxAngle),
+		behindCos: opt.BehindCos,
+	}
+	if !(pw.behindCos > 0) {
+		pw.behindCos = 0.7
 	}
 	par.For((h+bandRows-1)/bandRows, opt.Workers, func(band int) {
 		for y := band * bandRows; y < min(h, (band+1)*bandRows); y++ {
@@ -117,10 +127,11 @@ func MeasurementBands(depth []float32, intr mesh.Intrinsics, opt WeightOptions, 
 
 // pixelWeigher computes the weights and bands of one row at a time.
 type pixelWeigher struct {
-	intr   mesh.Intrinsics
-	opt    WeightOptions
-	ref2   float64 // σ_z(0.5 m, 0)²
-	cosMax float64 // cos MaxAngle
+	intr      mesh.Intrinsics
+	opt       WeightOptions
+	ref2      float64 // σ_z(0.5 m, 0)²
+	cosMax    float64 // cos MaxAngle
+	behindCos float64 // BehindCos, 0.7 for 0
 }
 
 func (pw *pixelWeigher) row(depth []float32, y int, dst, behind []float32) {
@@ -195,7 +206,7 @@ func (pw *pixelWeigher) row(depth []float32, y int, dst, behind []float32) {
 		out[x] = float32(pw.ref2 / (s * s))
 		if back != nil {
 			band := math.Max(opt.BehindSigmas*axialSigma(z, 0), opt.BehindMin)
-			back[x] = float32(band / math.Max(c, 0.7))
+			back[x] = float32(band / math.Max(c, pw.behindCos))
 		}
 	}
 }

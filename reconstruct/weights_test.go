@@ -72,7 +72,11 @@ func referenceBands(depth []float32, intr mesh.Intrinsics, opt WeightOptions) (w
 			s := axialSigma(z, th)
 			wt[i] = float32(ref * ref / (s * s))
 			band := math.Max(opt.BehindSigmas*axialSigma(z, 0), opt.BehindMin)
-			behind[i] = float32(band / math.Max(c, 0.7))
+			floor := opt.BehindCos
+			if floor == 0 {
+				floor = 0.7
+			}
+			behind[i] = float32(band / math.Max(c, floor))
 		}
 	}
 	return wt, behind, theta
@@ -114,7 +118,10 @@ func TestMeasurementBandsAgainstReference(t *testing.T) {
 	intr := mesh.Intrinsics{Width: 160, Height: 120, Fx: 131, Fy: 131, Cx: 79.5, Cy: 59.5}
 	opt := DefaultWeightOptions()
 	opt.BehindMin = 0.0035
-	for seed := uint64(1); seed <= 3; seed++ {
+	for seed := uint64(1); seed <= 4; seed++ {
+		if seed == 4 {
+			opt.BehindCos = math.Cos(opt.MaxAngle) // the handheld scene volume's bands
+		}
 		depth := bumpyDepth(intr, seed)
 		wantW, wantB, theta := referenceBands(depth, intr, opt)
 		gotW, gotB := MeasurementBands(depth, intr, opt, nil, nil, true)
