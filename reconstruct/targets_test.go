@@ -1,6 +1,7 @@
 package reconstruct
 
 import (
+	"fmt"
 	"math"
 	"os"
 	"testing"
@@ -52,6 +53,52 @@ func TestFuseTargets(t *testing.T) {
 			if res.Report.FramesUsed != res.Report.Frames || maxT > 0.002 || maxR > 0.5*math.Pi/180 || mean > 0.001 || f2 < 0.92 {
 				t.Errorf("%s: %d of %d frames, camera %.2f mm / %.2f° (≤ 2 mm, 0.5°), mean %.3f mm (≤ 1), F@2mm %.3f (≥ 0.92)",
 					name, res.Report.FramesUsed, res.Report.Frames, maxT*1000, maxR*180/math.Pi, mean*1000, f2)
+			}
+		})
+	}
+}
+
+// TestFuseHandheldSeeds fuses 120-frame handheld sweeps on other camera
+// paths than TestFuseTargets' seed 11 (long, SCANFOLD_LONG=1). The
+// bracket, whose 3 mm plate once made tracking slide 9–13 mm on seeds
+// 1–3 (the scene volume carved one face with the other side's
+// truncation band; FuseOptions.TrackBehind), must meet every handheld
+// target on each. On seed 1 the other parts meet the surface targets,
+// but their worst camera error is 2.47–3.14 mm (BENCHMARKS.md: error
+// carried through a stretch where the near table has no depth and the
+// far table's grain runs sideways); 3.5 mm guards that figure from
+// getting worse while the 2 mm target is open there.
+func TestFuseHandheldSeeds(t *testing.T) {
+	if os.Getenv("SCANFOLD_LONG") == "" {
+		t.Skip("long: set SCANFOLD_LONG=1")
+	}
+	type sweep struct {
+		part   string
+		seed   uint64
+		camera float64 // bound on the worst camera position error (metres)
+	}
+	var sweeps []sweep
+	for _, seed := range []uint64{1, 2, 3} {
+		sweeps = append(sweeps, sweep{"bracket", seed, 0.002})
+	}
+	for _, part := range []string{"bushing", "labelbox", "nut", "valve"} {
+		sweeps = append(sweeps, sweep{part, 1, 0.0035})
+	}
+	for _, s := range sweeps {
+		t.Run(fmt.Sprintf("%s/seed=%d", s.part, s.seed), func(t *testing.T) {
+			opt := DefaultSynthOptions()
+			opt.Rig = RigHandheld
+			opt.Frames = 120
+			opt.Seed = s.seed
+			res, tp, seen := fuseSynth(t, s.part, opt, DefaultFuseOptions())
+			maxT, maxR := worstCameraError(res.Report, tp)
+			mean := meanOf(surfaceDistances(t, res.Mesh, seen, 400000))
+			_, _, f2 := fScore(t, res.Mesh, seen, 0.002)
+			t.Logf("%s seed %d: %d of %d frames placed, worst camera error %.2f mm / %.2f°, mean %.3f mm, F@2mm %.3f",
+				s.part, s.seed, res.Report.FramesUsed, res.Report.Frames, maxT*1000, maxR*180/math.Pi, mean*1000, f2)
+			if res.Report.FramesUsed != res.Report.Frames || maxT > s.camera || maxR > 0.5*math.Pi/180 || mean > 0.001 || f2 < 0.92 {
+				t.Errorf("%s seed %d: %d of %d frames, camera %.2f mm / %.2f° (≤ %.1f mm, 0.5°), mean %.3f mm (≤ 1), F@2mm %.3f (≥ 0.92)",
+					s.part, s.seed, res.Report.FramesUsed, res.Report.Frames, maxT*1000, maxR*180/math.Pi, s.camera*1000, mean*1000, f2)
 			}
 		})
 	}
