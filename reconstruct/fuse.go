@@ -411,22 +411,18 @@ func Fuse(ctx context.Context, sw *Sweep, opt FuseOptions) (*FuseResult, error) 
 
 // fuser holds the state of one Fuse call.
 type fuser struct {
-	// sceneWeights and sceneBehind are the scene volume's weights and
-	// bands for the frame being tracked (FuseOptions.sceneBands).
-	sceneWeights, sceneBehind []float32
-	sw                        *Sweep
-	opt                       FuseOptions
-	rep                       *FuseReport
-	first                     *Frame
-	sup                       Support
-	part                      *Volume
-	roi                       ROI
+	sw    *Sweep
+	opt   FuseOptions
+	rep   *FuseReport
+	first *Frame
+	sup   Support
+	part  *Volume
+	roi   ROI
 	// scratch reused from frame to frame
 	alloc           []bool
 	weights, behind []float32
-	// wholeWeights: weigh every pixel, not only those that can reach the
-	// part volume (the handheld scene volume reuses the weights)
-	wholeWeights bool
+	// the scene volume's weights and bands (FuseOptions.sceneBands)
+	sceneWeights, sceneBehind []float32
 	// graphTime is the time the pose graph took (registrations and
 	// solve), part of the "integrate" stage's
 	graphTime time.Duration
@@ -530,10 +526,8 @@ func (f *fuser) measure(fr *Frame, camToWorld mesh.Pose) {
 	if wo.BehindMin == 0 {
 		wo.BehindMin = 1.75 * f.opt.TSDF.VoxelSize
 	}
-	if !f.wholeWeights {
-		// Every voxel of the part lies within AllocReach of the region.
-		wo.Region = f.roi.ImageRect(fr.Intr, camToWorld, f.part.AllocReach(), f.opt.TSDF.MinDepth)
-	}
+	// Every voxel of the part lies within AllocReach of the region.
+	wo.Region = f.roi.ImageRect(fr.Intr, camToWorld, f.part.AllocReach(), f.opt.TSDF.MinDepth)
 	f.weights, f.behind = MeasurementBands(fr.Depth, fr.Intr, wo, f.weights, f.behind, true)
 }
 
@@ -878,7 +872,6 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 		if tr, err = NewTracker(scene, f.first.Intr, f.opt.Track); err != nil {
 			return err
 		}
-		f.wholeWeights = true
 	}
 	// With a pose graph the part is fused once the poses are final.
 	graph := tr != nil && f.opt.Loop.NodeTurn > 0
@@ -953,8 +946,8 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			}
 		}
 		if scene != nil {
-			// The scene's weights are the part's; its bands behind the
-			// surface are its own (TrackBehind).
+			// The scene's weights follow the part's noise model; its bands
+			// behind the surface are its own (TrackBehind).
 			f.sceneWeights, f.sceneBehind = f.opt.sceneBands(fr.Depth, fr.Intr, f.sceneWeights, f.sceneBehind)
 			im := &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.sceneWeights, Behind: f.sceneBehind}
 			if _, err := scene.Integrate(ctx, im, pose); err != nil {
