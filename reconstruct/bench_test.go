@@ -546,9 +546,7 @@ func BenchmarkHandheldLoop(b *testing.B) {
 			if _, err := part.Integrate(ctx, im, pose); err != nil {
 				b.Fatal(err)
 			}
-			f.sceneWeights, f.sceneBehind = opt.sceneBands(fr.Depth, fr.Intr, f.sceneWeights, f.sceneBehind)
-			sim := &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.sceneWeights, Behind: f.sceneBehind}
-			if _, err := scene.Integrate(ctx, sim, pose); err != nil {
+			if err := f.integrateScene(ctx, scene, fr, pose); err != nil {
 				b.Fatal(err)
 			}
 			tr.UpdateModel(ctx, pose)
@@ -578,11 +576,9 @@ func BenchmarkRaycast(b *testing.B) {
 		b.Fatal(err)
 	}
 	const n = 30
+	f := &fuser{opt: opt}
 	for k, fr := range d.frames[:n] {
-		im := fr.DepthImage()
-		im.Color = nil
-		im.Weight, im.Behind = opt.sceneBands(fr.Depth, fr.Intr, nil, nil)
-		if _, err := scene.Integrate(ctx, im, d.truth[k]); err != nil {
+		if err := f.integrateScene(ctx, scene, fr, d.truth[k]); err != nil {
 			b.Fatal(err)
 		}
 	}
@@ -628,11 +624,10 @@ func BenchmarkPoseGraph(b *testing.B) {
 	}
 	rng := rand.New(rand.NewPCG(5, 6))
 	var nodes []graphNode
-	var weights, behind []float32
+	f := &fuser{opt: opt}
 	drift := mesh.Identity()
 	for k, fr := range d.frames {
-		weights, behind = opt.sceneBands(fr.Depth, fr.Intr, weights, behind)
-		if _, err := scene.Integrate(ctx, &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: weights, Behind: behind}, d.truth[k]); err != nil {
+		if err := f.integrateScene(ctx, scene, fr, d.truth[k]); err != nil {
 			b.Fatal(err)
 		}
 		if k > 0 {

@@ -199,8 +199,7 @@ func (o FuseOptions) sceneBands(depth []float32, intr mesh.Intrinsics, w, b []fl
 	wo := o.Weights
 	wo.Region = image.Rectangle{}
 	if !(o.TrackBehind > 0) {
-		w, _ = MeasurementBands(depth, intr, wo, w, nil, false)
-		return w, nil
+		return MeasurementWeights(depth, intr, wo, w), nil
 	}
 	wo.BehindMin = o.TrackBehind * o.TrackVoxel
 	// The band keeps its thickness across the surface at every angle the
@@ -519,9 +518,18 @@ func (p *prefetcher) take() (*Frame, error) {
 	return r.f, r.err
 }
 
-// measure fills f.weights and f.behind for a frame placed at
-// camToWorld (MeasurementBands).
-func (f *fuser) measure(fr *Frame, camToWorld mesh.Pose) {
+// integrateScene fuses one placed frame into the handheld rig's scene
+// volume, which tracking raycasts: the part's noise-model weights, and
+// the scene's own bands behind the surface (FuseOptions.sceneBands).
+func (f *fuser) integrateScene(ctx context.Context, scene *Volume, fr *Frame, camToWorld mesh.Pose) error {
+	f.sceneWeights, f.sceneBehind = f.opt.sceneBands(fr.Depth, fr.Intr, f.sceneWeights, f.sceneBehind)
+	_, err := scene.Integrate(ctx, &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.sceneWeights, Behind: f.sceneBehind}, camToWorld)
+	return err
+}
+
+// integrate fuses one placed frame into the part volume.
+func (f *fuser) integrate(ctx context.Context, fr *Frame, camToWorld mesh.Pose, alloc []bool) error {
+	im := fr.DepthImage()
 	wo := f.opt.Weights
 	if wo.BehindMin == 0 {
 		wo.BehindMin = 1.75 * f.opt.TSDF.VoxelSize
@@ -529,12 +537,6 @@ func (f *fuser) measure(fr *Frame, camToWorld mesh.Pose) {
 	// Every voxel of the part lies within AllocReach of the region.
 	wo.Region = f.roi.ImageRect(fr.Intr, camToWorld, f.part.AllocReach(), f.opt.TSDF.MinDepth)
 	f.weights, f.behind = MeasurementBands(fr.Depth, fr.Intr, wo, f.weights, f.behind, true)
-}
-
-// integrate fuses one placed frame into the part volume.
-func (f *fuser) integrate(ctx context.Context, fr *Frame, camToWorld mesh.Pose, alloc []bool) error {
-	im := fr.DepthImage()
-	f.measure(fr, camToWorld)
 	im.Weight, im.Behind = f.weights, f.behind
 	im.Alloc = alloc
 	if _, err := f.part.Integrate(ctx, im, camToWorld); err != nil {
@@ -946,11 +948,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			}
 		}
 		if scene != nil {
-			// The scene's weights follow the part's noise model; its bands
-			// behind the surface are its own (TrackBehind).
-			f.sceneWeights, f.sceneBehind = f.opt.sceneBands(fr.Depth, fr.Intr, f.sceneWeights, f.sceneBehind)
-			im := &DepthImage{Intr: fr.Intr, Depth: fr.Depth, Weight: f.sceneWeights, Behind: f.sceneBehind}
-			if _, err := scene.Integrate(ctx, im, pose); err != nil {
+			if err := f.integrateScene(ctx, scene, fr, pose); err != nil {
 				return fmt.Errorf("reconstruct: %s: frame %d: %w", f.sw.Dir, idx, err)
 			}
 			tr.UpdateModel(ctx, pose)

@@ -6,7 +6,6 @@ import (
 
 	"gonum.org/v1/gonum/spatial/r3"
 
-	"github.com/scanfold/scanfold/internal/par"
 	"github.com/scanfold/scanfold/mesh"
 )
 
@@ -59,23 +58,21 @@ type keyPixel struct {
 // goroutines (0: all cores).
 func downLuminance(src []float32, srcDepth []float32, sw, sh int, dst []float32, workers int) {
 	dw, dh := sw/2, sh/2
-	par.For((dh+bandRows-1)/bandRows, workers, func(b int) {
-		for y := b * bandRows; y < min(dh, (b+1)*bandRows); y++ {
-			for x := 0; x < dw; x++ {
-				var s float32
-				n := 0
-				for k := 0; k < 4; k++ {
-					i := (2*y+k/2)*sw + 2*x + k%2
-					if srcDepth[i] > 0 {
-						s += src[i]
-						n++
-					}
+	forRows(dh, workers, func(y int) {
+		for x := 0; x < dw; x++ {
+			var s float32
+			n := 0
+			for k := 0; k < 4; k++ {
+				i := (2*y+k/2)*sw + 2*x + k%2
+				if srcDepth[i] > 0 {
+					s += src[i]
+					n++
 				}
-				if n > 0 {
-					dst[y*dw+x] = s / float32(n)
-				} else {
-					dst[y*dw+x] = 0
-				}
+			}
+			if n > 0 {
+				dst[y*dw+x] = s / float32(n)
+			} else {
+				dst[y*dw+x] = 0
 			}
 		}
 	})
@@ -105,21 +102,19 @@ func (t *Tracker) SetKeyframe(lum, depth []float32, camToWorld mesh.Pose) {
 	for l := range k.levels {
 		kl := &k.levels[l]
 		w, h := kl.intr.Width, kl.intr.Height
-		par.For((h+bandRows-1)/bandRows, t.opt.Workers, func(b int) {
-			for y := b * bandRows; y < min(h, (b+1)*bandRows); y++ {
-				for x := 0; x < w; x++ {
-					i := y*w + x
-					kl.pix[i] = keyPixel{lum: kl.lum[i], depth: kl.depth[i]}
-					if x == 0 || y == 0 || x == w-1 || y == h-1 {
-						continue
-					}
-					if kl.depth[i] <= 0 || kl.depth[i-1] <= 0 || kl.depth[i+1] <= 0 || kl.depth[i-w] <= 0 || kl.depth[i+w] <= 0 {
-						continue
-					}
-					kl.pix[i].gx = (kl.lum[i+1] - kl.lum[i-1]) / 2
-					kl.pix[i].gy = (kl.lum[i+w] - kl.lum[i-w]) / 2
-					kl.pix[i].ok = true
+		forRows(h, t.opt.Workers, func(y int) {
+			for x := 0; x < w; x++ {
+				i := y*w + x
+				kl.pix[i] = keyPixel{lum: kl.lum[i], depth: kl.depth[i]}
+				if x == 0 || y == 0 || x == w-1 || y == h-1 {
+					continue
 				}
+				if kl.depth[i] <= 0 || kl.depth[i-1] <= 0 || kl.depth[i+1] <= 0 || kl.depth[i-w] <= 0 || kl.depth[i+w] <= 0 {
+					continue
+				}
+				kl.pix[i].gx = (kl.lum[i+1] - kl.lum[i-1]) / 2
+				kl.pix[i].gy = (kl.lum[i+w] - kl.lum[i-w]) / 2
+				kl.pix[i].ok = true
 			}
 		})
 	}

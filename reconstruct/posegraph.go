@@ -183,7 +183,7 @@ func twist(p mesh.Pose) [6]float64 {
 // translation by t.
 func expTwist(x [6]float64) mesh.Pose {
 	w := r3.Vec{X: x[0], Y: x[1], Z: x[2]}
-	return mesh.Pose{R: mesh.RotationFromAxisAngle(w, r3.Norm(w)), T: r3.Vec{X: x[3], Y: x[4], Z: x[5]}}
+	return mesh.PoseFromAxisAngle(w, r3.Norm(w), r3.Vec{X: x[3], Y: x[4], Z: x[5]})
 }
 
 // useNode makes node a's model map and colour the tracker's model and

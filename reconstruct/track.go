@@ -697,44 +697,43 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 	}
 }
 
+// inf32 is float32 +Inf.
+var inf32 = float32(math.Inf(1))
+
 // downDepth halves a depth image: each coarser depth averages the
 // valid pixels of a 2×2 block that lie within 3σ_z of the block's
 // nearest one (so edges are not blurred across a depth jump). Rows are
 // shared among the tracker's workers; each output pixel depends on its
 // block alone.
-var inf32 = float32(math.Inf(1))
-
 func (t *Tracker) downDepth(src []float32, sw int, dst []float32, dw, dh int) {
-	par.For((dh+bandRows-1)/bandRows, t.opt.Workers, func(b int) {
-		for y := b * bandRows; y < min(dh, (b+1)*bandRows); y++ {
-			top := src[2*y*sw : 2*y*sw+2*dw]
-			bot := src[(2*y+1)*sw : (2*y+1)*sw+2*dw]
-			out := dst[y*dw : (y+1)*dw]
-			for x := range out {
-				// The block's pixels in the order top-left, top-right,
-				// bottom-left, bottom-right (the order of the sum).
-				zs := [4]float32{top[2*x], top[2*x+1], bot[2*x], bot[2*x+1]}
-				near := inf32
-				for _, z := range zs {
-					if z > 0 && z < near {
-						near = z
-					}
+	forRows(dh, t.opt.Workers, func(y int) {
+		top := src[2*y*sw : 2*y*sw+2*dw]
+		bot := src[(2*y+1)*sw : (2*y+1)*sw+2*dw]
+		out := dst[y*dw : (y+1)*dw]
+		for x := range out {
+			// The block's pixels in the order top-left, top-right,
+			// bottom-left, bottom-right (the order of the sum).
+			zs := [4]float32{top[2*x], top[2*x+1], bot[2*x], bot[2*x+1]}
+			near := inf32
+			for _, z := range zs {
+				if z > 0 && z < near {
+					near = z
 				}
-				if near == inf32 { // no valid pixel (+Inf counts as none)
-					out[x] = 0
-					continue
-				}
-				limit := 3 * float32(axialSigma(float64(near), 0))
-				var sum float32
-				cnt := 0
-				for _, z := range zs {
-					if z > 0 && z-near <= limit {
-						sum += z
-						cnt++
-					}
-				}
-				out[x] = sum / float32(cnt)
 			}
+			if near == inf32 { // no valid pixel (+Inf counts as none)
+				out[x] = 0
+				continue
+			}
+			limit := 3 * float32(axialSigma(float64(near), 0))
+			var sum float32
+			cnt := 0
+			for _, z := range zs {
+				if z > 0 && z-near <= limit {
+					sum += z
+					cnt++
+				}
+			}
+			out[x] = sum / float32(cnt)
 		}
 	})
 }

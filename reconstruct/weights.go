@@ -88,8 +88,19 @@ func MeasurementWeights(depth []float32, intr mesh.Intrinsics, opt WeightOptions
 }
 
 // bandRows is how many image rows one goroutine of MeasurementBands
-// takes at a time.
+// (and the tracker's pyramids) takes at a time.
 const bandRows = 16
+
+// forRows calls row(y) for y in [0, h), bandRows rows at a time on up
+// to workers goroutines (0: all cores). Callers write each row's output
+// to that row alone, so the result does not depend on the workers.
+func forRows(h, workers int, row func(y int)) {
+	par.For((h+bandRows-1)/bandRows, workers, func(b int) {
+		for y := b * bandRows; y < min(h, (b+1)*bandRows); y++ {
+			row(y)
+		}
+	})
+}
 
 // MeasurementBands returns the weights of MeasurementWeights and, when
 // withBehind is set, each pixel's band behind the surface along its ray
@@ -117,11 +128,7 @@ func MeasurementBands(depth []float32, intr mesh.Intrinsics, opt WeightOptions, 
 	if !(pw.behindCos > 0) {
 		pw.behindCos = 0.7
 	}
-	par.For((h+bandRows-1)/bandRows, opt.Workers, func(band int) {
-		for y := band * bandRows; y < min(h, (band+1)*bandRows); y++ {
-			pw.row(depth, y, dst, behind)
-		}
-	})
+	forRows(h, opt.Workers, func(y int) { pw.row(depth, y, dst, behind) })
 	return dst, behind
 }
 
