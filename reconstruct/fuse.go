@@ -984,7 +984,7 @@ func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []in
 		if err != nil {
 			return fmt.Errorf("reconstruct: %s: %w", f.sw.Dir, err)
 		}
-		poses = correctPoses(placedPose, nodes, newNode)
+		poses = correctPoses(placedPose, nodes, newNode, f.opt.Loop.DriftSpan)
 		f.graphTime = time.Since(t0)
 		f.rep.GraphNodes, f.rep.GraphEdges, f.rep.GraphDropped = len(nodes), len(g.edges), dropped
 		for k := range poses {

@@ -39,7 +39,7 @@ type LoopOptions struct {
 	// NodeTurn and NodeShift: the first placed frame is a node, and
 	// each placed frame whose camera has turned NodeTurn (radians) or
 	// travelled NodeShift (metres) from the last node's, so each node
-	// registers with about three neighbours on either side (MaxPairTurn);
+	// registers with about four neighbours on either side (MaxPairTurn);
 	// a turn around a part gives about 23 nodes whatever its frames. Zero
 	// NodeTurn turns the pose graph off.
 	// DEFAULT: 15° (0.2618 rad), 0.15 m
@@ -54,9 +54,14 @@ type LoopOptions struct {
 	// seed 11, seeds 1–3; FuseOptions.TrackBehind 1.5), the worst camera
 	// error averaged 2.12 mm and reached 3.21 mm with pairs within 36°,
 	// 2.00 / 2.97 within 50°, 1.96 / 2.87 within 60°, 1.88 / 2.66 within
-	// 75°, and 25° with nodes every 10° did worse (3.83 mm); each 15° more
-	// adds about 0.3 s to a 120-frame sweep's graph (0.7 s at 36°).
-	// DEFAULT: 60° (1.0472)
+	// 75°, and 25° with nodes every 10° did worse (3.83 mm). With the
+	// band of 1 and DriftSpan 5: 1.79 / 2.57 within 45°, 1.71 / 2.38
+	// within 60°, 1.64 / 2.48 within 75° (13 of 14 sweeps within 2 mm,
+	// against 12 at 60° and 10 at 45°), 1.58 / 2.38 within 90° (13).
+	// Each 15° more adds about a third more registrations: the 120-frame
+	// bench sweep's graph took 1.43–1.60 s within 60° and 2.10–2.14 s
+	// within 75° (BenchmarkPoseGraph, 2-core AMD EPYC).
+	// DEFAULT: 75° (1.309)
 	MaxPairTurn float64
 	// MaxShift and MaxTurn: a registration that moves a node farther
 	// than this from where tracking put it relative to the other is
@@ -79,6 +84,23 @@ type LoopOptions struct {
 	// Iterations bounds the Gauss–Newton iterations of each solve.
 	// DEFAULT: 10
 	Iterations int
+	// DriftSpan: a node's correction is tracking's drift, shared by the
+	// frames around it, plus the node frame's own tracking error, which
+	// they do not share (on the 120-frame handheld sweeps, tracking
+	// errors of consecutive frames differ by up to 2.5 mm where the
+	// table holds the camera little). So a node's own frame takes its
+	// own correction, and the frames between nodes take their nodes'
+	// corrections averaged over DriftSpan nodes on either side, weighted
+	// DriftSpan+1−|d| at d nodes away, then interpolated. 0 interpolates
+	// the nodes' own corrections. On 14 handheld sweeps (the five parts
+	// at seed 11, seeds 1–3), the worst camera error averaged 1.64 mm,
+	// reached 2.48 mm and stayed within 2 mm on 13 sweeps with a span of
+	// 5 and pairs within 75°, against 1.74 / 2.78 / 10 with a span of
+	// 0. With pairs within 60°: span 5, 1.71 / 2.38 / 12; span 0, 1.87 /
+	// 3.14 / 10; a flat average over 2 nodes either side, 1.73 / 2.48 /
+	// 11, and the same moving the node frames too, 1.92 / 3.45 / 10.
+	// DEFAULT: 5
+	DriftSpan int
 }
 
 // DefaultLoopOptions returns the documented defaults.
@@ -86,13 +108,14 @@ func DefaultLoopOptions() LoopOptions {
 	return LoopOptions{
 		NodeTurn:     15 * math.Pi / 180,
 		NodeShift:    0.15,
-		MaxPairTurn:  60 * math.Pi / 180,
+		MaxPairTurn:  75 * math.Pi / 180,
 		MaxShift:     0.015,
 		MaxTurn:      2 * math.Pi / 180,
 		MinPairs:     2000,
 		OutlierShift: 0.002,
 		OutlierTurn:  0.5 * math.Pi / 180,
 		Iterations:   10,
+		DriftSpan:    5,
 	}
 }
 
@@ -448,26 +471,47 @@ func (g *poseGraph) optimise(lo LoopOptions) ([]mesh.Pose, int, error) {
 }
 
 // correctPoses spreads the nodes' corrections (new·old⁻¹, world-frame
-// small motions) over the placed frames: a frame between two nodes
-// takes the corrections interpolated by its place between them, a
-// frame after the last node takes the last node's.
-func correctPoses(poses []mesh.Pose, nodes []graphNode, newNode []mesh.Pose) []mesh.Pose {
+// small motions) over the placed frames: a node's frame takes its own
+// correction; a frame between two nodes takes their corrections averaged
+// over span nodes on either side (LoopOptions.DriftSpan) and
+// interpolated by its place between them; a frame after the last node
+// takes the last node's averaged correction.
+func correctPoses(poses []mesh.Pose, nodes []graphNode, newNode []mesh.Pose, span int) []mesh.Pose {
 	out := make([]mesh.Pose, len(poses))
-	corr := make([][6]float64, len(nodes))
+	own := make([][6]float64, len(nodes))
 	for k := range nodes {
-		corr[k] = twist(newNode[k].Mul(nodes[k].pose.Inv()))
+		own[k] = twist(newNode[k].Mul(nodes[k].pose.Inv()))
+	}
+	drift := make([][6]float64, len(nodes))
+	for k := range nodes {
+		var wsum float64
+		for q := max(0, k-span); q <= min(len(nodes)-1, k+span); q++ {
+			w := float64(span + 1 - max(q-k, k-q))
+			for u := range drift[k] {
+				drift[k][u] += w * own[q][u]
+			}
+			wsum += w
+		}
+		for u := range drift[k] {
+			drift[k][u] /= wsum
+		}
 	}
 	k := 0
 	for f := range poses {
 		for k+1 < len(nodes) && nodes[k+1].placed <= f {
 			k++
 		}
-		c := corr[k]
-		if k+1 < len(nodes) && f > nodes[k].placed {
+		var c [6]float64
+		switch {
+		case f == nodes[k].placed:
+			c = own[k]
+		case k+1 < len(nodes):
 			s := float64(f-nodes[k].placed) / float64(nodes[k+1].placed-nodes[k].placed)
 			for u := range c {
-				c[u] = (1-s)*corr[k][u] + s*corr[k+1][u]
+				c[u] = (1-s)*drift[k][u] + s*drift[k+1][u]
 			}
+		default:
+			c = drift[k]
 		}
 		out[f] = expTwist(c).Mul(poses[f]).Orthonormalize()
 	}

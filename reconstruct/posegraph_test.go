@@ -255,13 +255,58 @@ func TestCorrectPosesInterpolates(t *testing.T) {
 	for k := range poses {
 		poses[k] = mesh.Identity()
 	}
-	got := correctPoses(poses, nodes, newNode)
+	got := correctPoses(poses, nodes, newNode, 0)
 	// Frame k of 0..4 moves k/4 of node 1's 4 mm; frames after the last
 	// node move with it.
 	want := []float64{0, 1, 2, 3, 4, 4, 4}
 	for k, p := range got {
 		if math.Abs(p.T.X*1000-want[k]) > 1e-9 || p.T.Y != 0 || p.T.Z != 0 {
 			t.Errorf("frame %d moved to %v mm, want %.0f along x", k, r3.Scale(1000, p.T), want[k])
+		}
+	}
+}
+
+// TestCorrectPosesDrift checks DriftSpan's split of the nodes'
+// corrections: node frames keep their own, the frames between nodes
+// take the corrections averaged with weights span+1−|d| (worked by hand
+// below), and a drift linear in the node index passes the average
+// unchanged away from the ends (a symmetric kernel keeps straight lines).
+func TestCorrectPosesDrift(t *testing.T) {
+	move := func(mm float64) mesh.Pose { return mesh.Pose{R: mesh.Identity3(), T: r3.Vec{X: mm / 1000}} }
+	// Nodes at frames 0, 2, 4; only node 1's own error moves it (2 mm).
+	nodes := []graphNode{{placed: 0, pose: mesh.Identity()}, {placed: 2, pose: mesh.Identity()}, {placed: 4, pose: mesh.Identity()}}
+	newNode := []mesh.Pose{move(0), move(2), move(0)}
+	poses := make([]mesh.Pose, 6)
+	for k := range poses {
+		poses[k] = mesh.Identity()
+	}
+	// span 1: node 0 averages (2·0 + 1·2)/3, node 1 (0 + 2·2 + 0)/4,
+	// node 2 (2 + 2·0)/3; frame 1 halfway between the first two
+	// averages, frame 2 its own 2 mm, frame 5 after the last node node
+	// 2's average.
+	want := []float64{0, (2.0/3 + 1) / 2, 2, (1 + 2.0/3) / 2, 0, 2.0 / 3}
+	for k, p := range correctPoses(poses, nodes, newNode, 1) {
+		if math.Abs(p.T.X*1000-want[k]) > 1e-9 || p.T.Y != 0 || p.T.Z != 0 {
+			t.Errorf("span 1: frame %d moved to %v mm, want %.4f along x", k, r3.Scale(1000, p.T), want[k])
+		}
+	}
+	// A drift of 1 mm a node, nodes every 3 frames: with span 2 the
+	// frames whose nodes lie 2 or more from either end move by the drift
+	// interpolated, 1/3 mm a frame.
+	nodes = nodes[:0]
+	newNode = newNode[:0]
+	for k := 0; k < 8; k++ {
+		nodes = append(nodes, graphNode{placed: 3 * k, pose: mesh.Identity()})
+		newNode = append(newNode, move(float64(k)))
+	}
+	poses = make([]mesh.Pose, 22)
+	for k := range poses {
+		poses[k] = mesh.Identity()
+	}
+	got := correctPoses(poses, nodes, newNode, 2)
+	for f := 6; f <= 15; f++ {
+		if w := float64(f) / 3; math.Abs(got[f].T.X*1000-w) > 1e-9 {
+			t.Errorf("linear drift: frame %d moved %.6f mm, want %.6f", f, got[f].T.X*1000, w)
 		}
 	}
 }

@@ -63,11 +63,14 @@ func TestFuseTargets(t *testing.T) {
 // bracket, whose 3 mm plate once made tracking slide 9–13 mm on seeds
 // 1–3 (the scene volume carved one face with the other side's
 // truncation band; FuseOptions.TrackBehind), must meet every handheld
-// target on each. On seed 1 the other parts meet the surface targets,
-// but their worst camera error is 2.47–3.14 mm (BENCHMARKS.md: error
-// carried through a stretch where the near table has no depth and the
-// far table's grain runs sideways); 3.5 mm guards that figure from
-// getting worse while the 2 mm target is open there.
+// target on each, and so must the bushing, nut and valve on seed 1
+// (their worst camera error was 2.47–3.14 mm before
+// LoopOptions.DriftSpan). The seed-1 labelbox meets the surface
+// targets, but its worst camera error is 2.48 mm (BENCHMARKS.md: the
+// pose graph's registrations across a stretch where the near table has
+// no depth are 1.6–3 mm off and move nodes that tracking placed within
+// 0.5 mm); 3 mm guards that figure from getting worse while the 2 mm
+// target is open there.
 func TestFuseHandheldSeeds(t *testing.T) {
 	if os.Getenv("SCANFOLD_LONG") == "" {
 		t.Skip("long: set SCANFOLD_LONG=1")
@@ -81,9 +84,10 @@ func TestFuseHandheldSeeds(t *testing.T) {
 	for _, seed := range []uint64{1, 2, 3} {
 		sweeps = append(sweeps, sweep{"bracket", seed, 0.002})
 	}
-	for _, part := range []string{"bushing", "labelbox", "nut", "valve"} {
-		sweeps = append(sweeps, sweep{part, 1, 0.0035})
+	for _, part := range []string{"bushing", "nut", "valve"} {
+		sweeps = append(sweeps, sweep{part, 1, 0.002})
 	}
+	sweeps = append(sweeps, sweep{"labelbox", 1, 0.003})
 	for _, s := range sweeps {
 		t.Run(fmt.Sprintf("%s/seed=%d", s.part, s.seed), func(t *testing.T) {
 			opt := DefaultSynthOptions()
