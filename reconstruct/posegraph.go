@@ -91,8 +91,8 @@ type LoopOptions struct {
 	// table holds the camera little). So a node's own frame takes its
 	// own correction, and the frames between nodes take their nodes'
 	// corrections averaged over DriftSpan nodes on either side, weighted
-	// DriftSpan+1−|d| at d nodes away, then interpolated. 0 interpolates
-	// the nodes' own corrections. On 14 handheld sweeps (the five parts
+	// DriftSpan+1−|d| at d nodes away, then interpolated. 0 (or less)
+	// interpolates the nodes' own corrections. On 14 handheld sweeps (the five parts
 	// at seed 11, seeds 1–3), the worst camera error averaged 1.64 mm,
 	// reached 2.48 mm and stayed within 2 mm on 13 sweeps with a span of
 	// 5 and pairs within 75°, against 1.74 / 2.78 / 10 with a span of
@@ -482,6 +482,7 @@ func correctPoses(poses []mesh.Pose, nodes []graphNode, newNode []mesh.Pose, spa
 	for k := range nodes {
 		own[k] = twist(newNode[k].Mul(nodes[k].pose.Inv()))
 	}
+	span = max(span, 0)
 	drift := make([][6]float64, len(nodes))
 	for k := range nodes {
 		var wsum float64

@@ -255,13 +255,14 @@ func TestCorrectPosesInterpolates(t *testing.T) {
 	for k := range poses {
 		poses[k] = mesh.Identity()
 	}
-	got := correctPoses(poses, nodes, newNode, 0)
 	// Frame k of 0..4 moves k/4 of node 1's 4 mm; frames after the last
-	// node move with it.
+	// node move with it. A negative span counts as 0.
 	want := []float64{0, 1, 2, 3, 4, 4, 4}
-	for k, p := range got {
-		if math.Abs(p.T.X*1000-want[k]) > 1e-9 || p.T.Y != 0 || p.T.Z != 0 {
-			t.Errorf("frame %d moved to %v mm, want %.0f along x", k, r3.Scale(1000, p.T), want[k])
+	for _, span := range []int{0, -1} {
+		for k, p := range correctPoses(poses, nodes, newNode, span) {
+			if math.Abs(p.T.X*1000-want[k]) > 1e-9 || p.T.Y != 0 || p.T.Z != 0 {
+				t.Errorf("span %d: frame %d moved to %v mm, want %.0f along x", span, k, r3.Scale(1000, p.T), want[k])
+			}
 		}
 	}
 }
