@@ -283,9 +283,10 @@ func TestFuseHandheldAgainstTruth(t *testing.T) {
 	// ColorSubsample 2, which at 320×240 thin the model map and the
 	// colour term further); 2.77 mm / 0.25° without the graph; 2.22 mm /
 	// 0.26° since the scene volume keeps bands behind the surface
-	// (FuseOptions.TrackBehind); 2.34 mm / 0.25° with pairs within 75°
-	// and LoopOptions.DriftSpan (which the 120-frame sweeps gain from;
-	// a loop of 40 frames has 8 nodes, fewer than a span each side). 3 mm /
+	// (FuseOptions.TrackBehind); with pairs within 75°, 2.17 mm / 0.26°
+	// with LoopOptions.DriftSpan 0 and 2.34 mm / 0.25° with its default
+	// 5 (23 nodes; the full-size sweeps gain from the span, this one
+	// loses 0.17 mm). 3 mm /
 	// 0.5° leaves room for rounding across platforms but not for the
 	// loop's drift.
 	if worstT > 0.003 || worstR > 0.5*math.Pi/180 || mean > 0.001 {

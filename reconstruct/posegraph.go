@@ -86,19 +86,20 @@ type LoopOptions struct {
 	Iterations int
 	// DriftSpan: a node's correction is tracking's drift, shared by the
 	// frames around it, plus the node frame's own tracking error, which
-	// they do not share (on the 120-frame handheld sweeps, tracking
-	// errors of consecutive frames differ by up to 2.5 mm where the
-	// table holds the camera little). So a node's own frame takes its
-	// own correction, and the frames between nodes take their nodes'
-	// corrections averaged over DriftSpan nodes on either side, weighted
-	// DriftSpan+1−|d| at d nodes away, then interpolated. 0 (or less)
-	// interpolates the nodes' own corrections. On 14 handheld sweeps (the five parts
-	// at seed 11, seeds 1–3), the worst camera error averaged 1.64 mm,
-	// reached 2.48 mm and stayed within 2 mm on 13 sweeps with a span of
-	// 5 and pairs within 75°, against 1.74 / 2.78 / 10 with a span of
-	// 0. With pairs within 60°: span 5, 1.71 / 2.38 / 12; span 0, 1.87 /
-	// 3.14 / 10; a flat average over 2 nodes either side, 1.73 / 2.48 /
-	// 11, and the same moving the node frames too, 1.92 / 3.45 / 10.
+	// they do not share (tracking alone, consecutive frames' errors
+	// differ by up to 2.46 mm in frames 43–63 of the seed-1 handheld
+	// path, where the table holds the camera little, and by up to 1.80
+	// mm on seed 11). So a node's own frame takes its own correction, and
+	// the frames between nodes take their nodes' corrections averaged
+	// over DriftSpan nodes on either side, weighted DriftSpan+1−|d| at d
+	// nodes away, then interpolated. 0 (or less) interpolates the nodes'
+	// own corrections. On 14 handheld sweeps (the five parts at seed 11,
+	// seeds 1–3), the worst camera error averaged 1.64 mm, reached 2.48
+	// mm and stayed within 2 mm on 13 sweeps with a span of 5 and pairs
+	// within 75°, against 1.74 / 2.78 / 10 with a span of 0. With pairs
+	// within 60°: span 5, 1.71 / 2.38 / 12; span 0, 1.87 / 3.14 / 10; a
+	// flat average over 2 nodes either side, 1.73 / 2.48 / 11, and the
+	// same moving the node frames too, 1.92 / 3.45 / 10.
 	// DEFAULT: 5
 	DriftSpan int
 }

@@ -68,8 +68,8 @@ func TestFuseTargets(t *testing.T) {
 // LoopOptions.DriftSpan). The seed-1 labelbox meets the surface
 // targets, but its worst camera error is 2.48 mm (BENCHMARKS.md: the
 // pose graph's registrations across a stretch where the near table has
-// no depth are 1.6–3 mm off and move nodes that tracking placed within
-// 0.5 mm); 3 mm guards that figure from getting worse while the 2 mm
+// no depth are 1.2–3.0 mm off and move nodes that tracking placed within
+// 0.52 mm); 3 mm guards that figure from getting worse while the 2 mm
 // target is open there.
 func TestFuseHandheldSeeds(t *testing.T) {
 	if os.Getenv("SCANFOLD_LONG") == "" {
