@@ -525,12 +525,15 @@ func (t *Tracker) pass(l int, camToWorld, worldToModel mesh.Pose, maxD, cosMax f
 		bs := &parts[k]
 		*bs = bandSums{}
 		sys := &bs.icp
+		if colour {
+			// the colour term's sums are kept apart from the depth
+			// pairs', so the two loops add in the same order as one
+			from := (lv.bands[k] + cstep - 1) / cstep * cstep
+			ct.addRange(&bs.photo, lv.samples, from, lv.bands[k+1], cstep, &cw)
+		}
 		for si := lv.bands[k]; si < lv.bands[k+1]; si++ {
 			s := &lv.samples[si]
 			v := s.v
-			if colour && si%cstep == 0 {
-				ct.add(&bs.photo, s, cw.apply(v))
-			}
 			n := s.n
 			if n == (r3.Vec{}) {
 				continue
