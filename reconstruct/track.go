@@ -719,8 +719,8 @@ func (t *Tracker) downDepth(src []float32, sw int, dst []float32, dw, dh int) {
 			zs := [4]float32{top[2*x], top[2*x+1], bot[2*x], bot[2*x+1]}
 			near := inf32
 			for _, z := range zs {
-				if z > 0 && z < near {
-					near = z
+				if z > 0 {
+					near = min(near, z)
 				}
 			}
 			if near == inf32 { // no valid pixel (+Inf counts as none)
