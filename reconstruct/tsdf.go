@@ -103,8 +103,8 @@ type Volume struct {
 	lo, hi BlockKey    // box around the allocated blocks
 	grid   blockGrid
 	// scratch reused between frames
-	fresh   map[BlockKey]struct{}
-	pending []BlockKey
+	pending  []BlockKey
+	bandKeys [][]BlockKey // allocate's new keys, per band of rows
 	visible []int32
 	counts  []int
 	noCull  bool // tests: integrate without culling blocks seen from behind
@@ -203,7 +203,6 @@ func NewVolume(opt TSDFOptions) (*Volume, error) {
 		opt:   opt,
 		mu:    opt.Truncation,
 		index: make(map[BlockKey]int32),
-		fresh: make(map[BlockKey]struct{}),
 	}, nil
 }
 
@@ -463,10 +462,16 @@ func (v *Volume) KeyOf(p r3.Vec) BlockKey {
 	return BlockKey{int32(math.Floor(p.X / s)), int32(math.Floor(p.Y / s)), int32(math.Floor(p.Z / s))}
 }
 
+// allocBandRows is how many sampled rows of an image allocate gives
+// one goroutine at a time.
+const allocBandRows = 8
+
 // allocate creates the blocks that the truncation bands of im.Alloc's
-// pixels pass through and returns how many it created. New blocks are
-// allocated in key order, so the volume's layout does not depend on
-// map iteration.
+// pixels pass through and returns how many it created. The rows are
+// shared among the volume's workers, which only read the volume; the
+// keys they find are then sorted and allocated in key order, so the
+// volume's layout depends neither on the number of workers nor on
+// their timing.
 func (v *Volume) allocate(im *DepthImage, camToWorld mesh.Pose) (int, error) {
 	k := im.Intr
 	stride := v.opt.AllocStride
@@ -477,47 +482,56 @@ func (v *Volume) allocate(im *DepthImage, camToWorld mesh.Pose) (int, error) {
 	steps := int(math.Ceil(2*v.mu/(blockLen/4))) + 1
 	minD, maxD := v.opt.MinDepth, v.opt.MaxDepth
 	rot, org := camToWorld.R, camToWorld.T
-	clear(v.fresh)
-	v.pending = v.pending[:0]
-	for y := 0; y < k.Height; y += stride {
-		ry := (float64(y) - k.Cy) / k.Fy
-		for x := 0; x < k.Width; x += stride {
-			i := y*k.Width + x
-			if im.Alloc != nil && !im.Alloc[i] {
-				continue
-			}
-			d := float64(im.Depth[i])
-			if !(d >= minD && d <= maxD) {
-				continue
-			}
-			if im.Weight != nil && !(im.Weight[i] > 0) {
-				continue
-			}
-			ray := r3.Vec{X: (float64(x) - k.Cx) / k.Fx, Y: ry, Z: 1}
-			scale := v.mu / math.Sqrt(ray.X*ray.X+ray.Y*ray.Y+1) // the band is ±μ along the ray
-			wr := rot.MulVec(ray)
-			last := BlockKey{math.MaxInt32, 0, 0}
-			for s := 0; s < steps; s++ {
-				t := d - scale + 2*scale*float64(s)/float64(steps-1)
-				key := v.KeyOf(r3.Add(org, r3.Scale(t, wr)))
-				if key == last {
+	rows := (k.Height + stride - 1) / stride
+	nb := (rows + allocBandRows - 1) / allocBandRows
+	for len(v.bandKeys) < nb {
+		v.bandKeys = append(v.bandKeys, nil)
+	}
+	par.For(nb, v.opt.Workers, func(b int) {
+		keys := v.bandKeys[b][:0]
+		for r := b * allocBandRows; r < min(rows, (b+1)*allocBandRows); r++ {
+			y := r * stride
+			ry := (float64(y) - k.Cy) / k.Fy
+			for x := 0; x < k.Width; x += stride {
+				i := y*k.Width + x
+				if im.Alloc != nil && !im.Alloc[i] {
 					continue
 				}
-				last = key
-				if v.lookup(key) != nil {
+				d := float64(im.Depth[i])
+				if !(d >= minD && d <= maxD) {
 					continue
 				}
-				if _, ok := v.fresh[key]; !ok {
-					v.fresh[key] = struct{}{}
-					v.pending = append(v.pending, key)
+				if im.Weight != nil && !(im.Weight[i] > 0) {
+					continue
+				}
+				ray := r3.Vec{X: (float64(x) - k.Cx) / k.Fx, Y: ry, Z: 1}
+				scale := v.mu / math.Sqrt(ray.X*ray.X+ray.Y*ray.Y+1) // the band is ±μ along the ray
+				wr := rot.MulVec(ray)
+				last := BlockKey{math.MaxInt32, 0, 0}
+				for s := 0; s < steps; s++ {
+					t := d - scale + 2*scale*float64(s)/float64(steps-1)
+					key := v.KeyOf(r3.Add(org, r3.Scale(t, wr)))
+					if key == last {
+						continue
+					}
+					last = key
+					if v.lookup(key) == nil {
+						keys = append(keys, key)
+					}
 				}
 			}
 		}
+		v.bandKeys[b] = keys
+	})
+	v.pending = v.pending[:0]
+	for _, keys := range v.bandKeys[:nb] {
+		v.pending = append(v.pending, keys...)
 	}
 	if len(v.pending) == 0 {
 		return 0, nil
 	}
 	slices.SortFunc(v.pending, compareKeys)
+	v.pending = slices.Compact(v.pending)
 	if err := v.addBlocks(v.pending); err != nil {
 		return 0, err
 	}
