@@ -105,9 +105,9 @@ type Volume struct {
 	// scratch reused between frames
 	pending  []BlockKey
 	bandKeys [][]BlockKey // allocate's new keys, per band of rows
-	visible []int32
-	counts  []int
-	noCull  bool // tests: integrate without culling blocks seen from behind
+	visible  []int32
+	counts   []int
+	noCull   bool // tests: integrate without culling blocks seen from behind
 }
 
 // voxelMask has one bit per voxel of a block (bit i%64 of word i/64 for
