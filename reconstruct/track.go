@@ -140,6 +140,7 @@ type level struct {
 	// of a pair in that bin (normal-space equalisation, below).
 	bin       []uint8
 	binWeight [normalBins]float64
+	binCounts [][normalBins]int // equaliseNormals' counts per band
 	// samples are the pixels tracking visits (every step-th in both
 	// directions, with depth), row by row, and bands[k] the first of
 	// band k's (trackBandRows sampled rows a band); bands has one entry
@@ -218,23 +219,43 @@ func normalBin(n r3.Vec) uint8 {
 // three, which then converge slowly and drift with the noise. A bin's
 // weight is the mean count per occupied bin over its own count, capped at
 // 10.
-func (lv *level) equaliseNormals(step int) {
-	var count [normalBins]int
-	occupied := 0
+func (lv *level) equaliseNormals(step int, workers int) {
 	w, h := lv.intr.Width, lv.intr.Height
-	for y := 0; y < h; y += step { // vertexNormalMaps gives no other pixel a normal
-		for x := 0; x < w; x += step {
-			i := y*w + x
-			n := lv.norm[i]
-			if n == (r3.Vec{}) {
-				continue
+	rows := (h + step - 1) / step
+	nb := (rows + trackBandRows - 1) / trackBandRows
+	if cap(lv.binCounts) < nb {
+		lv.binCounts = make([][normalBins]int, nb)
+	}
+	counts := lv.binCounts[:nb]
+	// Bands of rows count their bins on all cores; the counts add up
+	// to the same totals in any order.
+	par.For(nb, workers, func(k int) {
+		c := &counts[k]
+		*c = [normalBins]int{}
+		for r := k * trackBandRows; r < min(rows, (k+1)*trackBandRows); r++ {
+			y := r * step // vertexNormalMaps gives no other pixel a normal
+			for x := 0; x < w; x += step {
+				i := y*w + x
+				n := lv.norm[i]
+				if n == (r3.Vec{}) {
+					continue
+				}
+				b := normalBin(n)
+				lv.bin[i] = b
+				c[b]++
 			}
-			b := normalBin(n)
-			lv.bin[i] = b
-			if count[b] == 0 {
-				occupied++
-			}
-			count[b]++
+		}
+	})
+	var count [normalBins]int
+	for k := range counts {
+		for b, c := range counts[k] {
+			count[b] += c
+		}
+	}
+	occupied := 0
+	for _, c := range count {
+		if c > 0 {
+			occupied++
 		}
 	}
 	mean := float64(lv.valid) / math.Max(1, float64(occupied))
@@ -696,7 +717,7 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 		// Normals from differences spanning about 3 mm at part
 		// distances: adjacent pixels of the full image are too noisy.
 		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, max(1, 3>>l), levelStep(l))
-		lv.equaliseNormals(levelStep(l))
+		lv.equaliseNormals(levelStep(l), t.opt.Workers)
 	}
 }
 
