@@ -163,6 +163,8 @@ type ModelMap struct {
 	// camera over which the tile's rays can meet allocated blocks;
 	// scratch of Raycast
 	near, far []float32
+	// rayIntervals' per-chunk intervals
+	chunkNear, chunkFar [][]float32
 }
 
 // Valid reports whether pixel i holds a surface point.
@@ -204,11 +206,12 @@ func (v *Volume) raycast(ctx context.Context, intr mesh.Intrinsics, camToWorld m
 	tw, th := (intr.Width+rayTile-1)/rayTile, (intr.Height+rayTile-1)/rayTile
 	if len(dst.near) != tw*th {
 		dst.near, dst.far = make([]float32, tw*th), make([]float32, tw*th)
+		dst.chunkNear, dst.chunkFar = nil, nil
 	}
 	dst.Intr = intr
 	lo, hi, ok := v.bounds()
 	if ok {
-		v.rayIntervals(intr, camToWorld, dst.near, dst.far)
+		v.rayIntervals(intr, camToWorld, dst)
 	}
 	par.For(intr.Height, v.opt.Workers, func(y int) {
 		if ctx.Err() != nil {
@@ -253,8 +256,39 @@ const rayTile = 8
 // range; a box reaching nearer than any ray starts is bounded through
 // the extremes of x/z and y/z over its extent.
 // Bounds are widened by a voxel, so float32 rounding never cuts a ray
-// short.
-func (v *Volume) rayIntervals(intr mesh.Intrinsics, camToWorld mesh.Pose, near, far []float32) {
+// short. The blocks are shared in chunks among the volume's workers,
+// each with its own intervals; the chunks' minima and maxima are then
+// taken, which does not depend on the order.
+func (v *Volume) rayIntervals(intr mesh.Intrinsics, camToWorld mesh.Pose, m *ModelMap) {
+	near, far := m.near, m.far
+	nc := (len(v.keys) + rayChunk - 1) / rayChunk
+	for len(m.chunkNear) < nc {
+		m.chunkNear = append(m.chunkNear, make([]float32, len(near)))
+		m.chunkFar = append(m.chunkFar, make([]float32, len(near)))
+	}
+	par.For(nc, v.opt.Workers, func(c int) {
+		v.chunkIntervals(intr, camToWorld, v.keys[c*rayChunk:min(len(v.keys), (c+1)*rayChunk)], m.chunkNear[c], m.chunkFar[c])
+	})
+	for i := range near {
+		near[i], far[i] = float32(math.Inf(1)), float32(math.Inf(-1))
+	}
+	for c := 0; c < nc; c++ {
+		for i, z := range m.chunkNear[c] {
+			near[i] = min(near[i], z)
+		}
+		for i, z := range m.chunkFar[c] {
+			far[i] = max(far[i], z)
+		}
+	}
+}
+
+// rayChunk is how many blocks one goroutine of rayIntervals bounds at
+// a time.
+const rayChunk = 512
+
+// chunkIntervals sets near and far (per tile) from the blocks at keys
+// alone: rayIntervals for those blocks.
+func (v *Volume) chunkIntervals(intr mesh.Intrinsics, camToWorld mesh.Pose, keys []BlockKey, near, far []float32) {
 	for i := range near {
 		near[i], far[i] = float32(math.Inf(1)), float32(math.Inf(-1))
 	}
@@ -272,7 +306,7 @@ func (v *Volume) rayIntervals(intr mesh.Intrinsics, camToWorld mesh.Pose, near, 
 	corner := r3.Norm(intr.Ray(math.Max(intr.Cx+0.5, float64(w)-intr.Cx-0.5), math.Max(intr.Cy+0.5, float64(h)-intr.Cy-0.5)))
 	zReach := math.Max(v.opt.MinDepth/corner, 1e-6)
 	pad := v.opt.VoxelSize
-	for _, key := range v.keys {
+	for _, key := range keys {
 		lo := r3.Vec{X: float64(key.X) * blockLen, Y: float64(key.Y) * blockLen, Z: float64(key.Z) * blockLen}
 		// Nearest point of the box to the eye, farthest corner.
 		q := r3.Vec{X: clampF(eye.X, lo.X, lo.X+blockLen), Y: clampF(eye.Y, lo.Y, lo.Y+blockLen), Z: clampF(eye.Z, lo.Z, lo.Z+blockLen)}
