@@ -60,7 +60,9 @@ type LoopOptions struct {
 	// against 12 at 60° and 10 at 45°), 1.58 / 2.38 within 90° (13).
 	// Each 15° more adds about a third more registrations: the 120-frame
 	// bench sweep's graph took 1.43–1.60 s within 60° and 2.10–2.14 s
-	// within 75° (BenchmarkPoseGraph, 2-core AMD EPYC).
+	// within 75° (BenchmarkPoseGraph, 2-core AMD EPYC), 1.77–1.83 s
+	// within 75° after later speed changes that left the poses as they
+	// were.
 	// DEFAULT: 75° (1.309)
 	MaxPairTurn float64
 	// MaxShift and MaxTurn: a registration that moves a node farther
