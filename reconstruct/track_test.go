@@ -219,3 +219,83 @@ func TestTrackColorPinsTurnOnTexturedPlate(t *testing.T) {
 		}
 	}
 }
+
+// TestColourTermChunks checks that the colour term's two-step loop
+// (colourTerm.addRange: project a chunk of samples, then add the ones
+// whose keyframe pixels all have a gradient) adds exactly what one
+// sample-by-sample loop adds, in the same order, for ranges that start
+// and end inside chunks and for every step: the sums must agree to the
+// bit. The frames are plateScene's textured table turned by 1°.
+func TestColourTermChunks(t *testing.T) {
+	s := newPlateScene()
+	s.axis = [2]float64{}
+	s.radius = 0.5
+	v0, v1 := s.view(0, 0), s.view(1, 1*math.Pi/180)
+	ctx := context.Background()
+	opt := DefaultTSDFOptions()
+	opt.VoxelSize = 0.004
+	vol, err := NewVolume(opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	to := DefaultTrackOptions()
+	to.ColorSigma = 3
+	tr, err := NewTracker(vol, s.intr, to)
+	if err != nil {
+		t.Fatal(err)
+	}
+	im := &DepthImage{Intr: s.intr, Depth: v0.Depth, Weight: MeasurementWeights(v0.Depth, s.intr, DefaultWeightOptions(), nil)}
+	if _, err := vol.Integrate(ctx, im, mesh.Identity()); err != nil {
+		t.Fatal(err)
+	}
+	tr.UpdateModel(ctx, mesh.Identity())
+	tr.SetKeyframe(Luminance(v0.Color, nil), v0.Depth, mesh.Identity())
+	if _, err := tr.TrackColor(ctx, v1.Depth, Luminance(v1.Color, nil), nil, mesh.Identity()); err != nil {
+		t.Fatal(err)
+	}
+	// a pose a little off, so that the pairs are not all at zero residual
+	pose := mesh.PoseFromAxisAngle(r3.Vec{Y: 1}, 0.002, r3.Vec{X: 0.001})
+	cw := newAffine(pose)
+	samples := tr.levels[0].samples
+	n := len(samples)
+	if n < 1000 {
+		t.Fatalf("only %d samples", n)
+	}
+	for _, step := range []int{1, 2, 3} {
+		ct := tr.colourTerm(0, pose, [2]float64{1.1, -2}, step)
+		mid := n / 2 / step * step
+		// whole; starting and ending inside chunks; one chunk and one
+		// sample more; a single sample
+		for _, r := range [][2]int{{0, n}, {step * 7, n - 5}, {mid, mid + 64*step + 1}, {mid + 3*step, mid + 3*step + 1}} {
+			from, to := r[0], r[1]
+			var got, want photoPart
+			ct.addRange(&got, samples, from, to, step, &cw)
+			// one sample at a time
+			ki := &ct.kl.intr
+			kw := ki.Width
+			for si := from; si < to; si += step {
+				pk := ct.camToKey.apply(samples[si].v)
+				if pk.Z <= 0 {
+					continue
+				}
+				want.cand++
+				uf, vf := ki.Fx*pk.X/pk.Z+ki.Cx, ki.Fy*pk.Y/pk.Z+ki.Cy
+				if !(uf >= 1 && vf >= 1) || int(uf)+2 >= kw || int(vf)+2 >= ki.Height {
+					continue
+				}
+				j := int(vf)*kw + int(uf)
+				pix := ct.kl.pix
+				if !(pix[j].depth > 0 && pix[j+1].depth > 0 && pix[j+kw].depth > 0 && pix[j+kw+1].depth > 0) {
+					continue
+				}
+				ct.add(&want, &samples[si], cw.apply(samples[si].v), &colourHit{si: int32(si), j: int32(j), uf: uf, vf: vf, pk: pk})
+			}
+			if want.pair == 0 && to-from > 1 {
+				t.Fatalf("step %d, samples %d–%d: no pairs; the test needs some", step, from, to)
+			}
+			if got != want {
+				t.Errorf("step %d, samples %d–%d: chunked sums differ: %d/%d pairs of %d/%d candidates", step, from, to, got.pair, want.pair, got.cand, want.cand)
+			}
+		}
+	}
+}

@@ -3,6 +3,7 @@ package reconstruct
 import (
 	"context"
 	"math"
+	"slices"
 	"testing"
 
 	"gonum.org/v1/gonum/spatial/r3"
@@ -204,6 +205,11 @@ func TestIntegrateDeterministic(t *testing.T) {
 	b := fuseSphere(t, o4, c, 0.03, poses)
 	if a.NumBlocks() != b.NumBlocks() {
 		t.Fatalf("%d vs %d blocks", a.NumBlocks(), b.NumBlocks())
+	}
+	// the same blocks in the same order (allocate shares rows among
+	// the workers, then allocates the keys they found sorted)
+	if !slices.Equal(a.keys, b.keys) {
+		t.Fatal("blocks allocated in a different order with 4 workers")
 	}
 	for _, k := range a.Keys() {
 		if *a.Block(k) != *b.Block(k) {
