@@ -67,10 +67,11 @@ func TestFuseTargets(t *testing.T) {
 // (their worst camera error was 2.47–3.14 mm before
 // LoopOptions.DriftSpan). The seed-1 labelbox meets the surface
 // targets, but its worst camera error is 2.48 mm (BENCHMARKS.md: the
-// pose graph's registrations across a stretch where the near table has
-// no depth are 1.2–3.0 mm off and move nodes that tracking placed within
-// 0.52 mm); 3 mm guards that figure from getting worse while the 2 mm
-// target is open there.
+// tracker places single frames 1–3 mm off even against a model fused at
+// the true poses, mostly from the sensor noise and the shading changes a
+// global colour gain cannot follow; the pose graph's corrections cannot
+// take out one frame's own error); 3 mm guards that figure from getting
+// worse while the 2 mm target is open there.
 func TestFuseHandheldSeeds(t *testing.T) {
 	if os.Getenv("SCANFOLD_LONG") == "" {
 		t.Skip("long: set SCANFOLD_LONG=1")

@@ -168,27 +168,8 @@ func TestTrackColorPinsTurnOnTexturedPlate(t *testing.T) {
 	r := mesh.RotationFromAxisAngle(s.up, turn)
 	truth := mesh.Pose{R: r, T: r3.Sub(s.p0, r.MulVec(s.p0))}.Inv()
 	ctx := context.Background()
-	opt := DefaultTSDFOptions()
-	opt.VoxelSize = 0.004
 	track := func(colour bool) (mesh.Pose, bool) {
-		vol, err := NewVolume(opt)
-		if err != nil {
-			t.Fatal(err)
-		}
-		to := DefaultTrackOptions()
-		if colour {
-			to.ColorSigma = 3
-		}
-		tr, err := NewTracker(vol, s.intr, to)
-		if err != nil {
-			t.Fatal(err)
-		}
-		im := &DepthImage{Intr: s.intr, Depth: v0.Depth, Weight: MeasurementWeights(v0.Depth, s.intr, DefaultWeightOptions(), nil)}
-		if _, err := vol.Integrate(ctx, im, mesh.Identity()); err != nil {
-			t.Fatal(err)
-		}
-		tr.UpdateModel(ctx, mesh.Identity())
-		tr.SetKeyframe(Luminance(v0.Color, nil), v0.Depth, mesh.Identity())
+		tr := plateTracker(t, s, v0, colour)
 		res, err := tr.TrackColor(ctx, v1.Depth, Luminance(v1.Color, nil), nil, mesh.Identity())
 		if err != nil {
 			t.Fatal(err)
@@ -231,26 +212,8 @@ func TestColourTermChunks(t *testing.T) {
 	s.axis = [2]float64{}
 	s.radius = 0.5
 	v0, v1 := s.view(0, 0), s.view(1, 1*math.Pi/180)
-	ctx := context.Background()
-	opt := DefaultTSDFOptions()
-	opt.VoxelSize = 0.004
-	vol, err := NewVolume(opt)
-	if err != nil {
-		t.Fatal(err)
-	}
-	to := DefaultTrackOptions()
-	to.ColorSigma = 3
-	tr, err := NewTracker(vol, s.intr, to)
-	if err != nil {
-		t.Fatal(err)
-	}
-	im := &DepthImage{Intr: s.intr, Depth: v0.Depth, Weight: MeasurementWeights(v0.Depth, s.intr, DefaultWeightOptions(), nil)}
-	if _, err := vol.Integrate(ctx, im, mesh.Identity()); err != nil {
-		t.Fatal(err)
-	}
-	tr.UpdateModel(ctx, mesh.Identity())
-	tr.SetKeyframe(Luminance(v0.Color, nil), v0.Depth, mesh.Identity())
-	if _, err := tr.TrackColor(ctx, v1.Depth, Luminance(v1.Color, nil), nil, mesh.Identity()); err != nil {
+	tr := plateTracker(t, s, v0, true)
+	if _, err := tr.TrackColor(context.Background(), v1.Depth, Luminance(v1.Color, nil), nil, mesh.Identity()); err != nil {
 		t.Fatal(err)
 	}
 	// a pose a little off, so that the pairs are not all at zero residual
@@ -298,4 +261,33 @@ func TestColourTermChunks(t *testing.T) {
 			}
 		}
 	}
+}
+
+// plateTracker returns a tracker (colour on when colour, ColorSigma 3)
+// whose model is plate view v0 fused into a 4 mm volume at the
+// identity, with v0 as its keyframe.
+func plateTracker(t *testing.T, s *plateScene, v0 PlateView, colour bool) *Tracker {
+	t.Helper()
+	ctx := context.Background()
+	opt := DefaultTSDFOptions()
+	opt.VoxelSize = 0.004
+	vol, err := NewVolume(opt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	to := DefaultTrackOptions()
+	if colour {
+		to.ColorSigma = 3
+	}
+	tr, err := NewTracker(vol, s.intr, to)
+	if err != nil {
+		t.Fatal(err)
+	}
+	im := &DepthImage{Intr: s.intr, Depth: v0.Depth, Weight: MeasurementWeights(v0.Depth, s.intr, DefaultWeightOptions(), nil)}
+	if _, err := vol.Integrate(ctx, im, mesh.Identity()); err != nil {
+		t.Fatal(err)
+	}
+	tr.UpdateModel(ctx, mesh.Identity())
+	tr.SetKeyframe(Luminance(v0.Color, nil), v0.Depth, mesh.Identity())
+	return tr
 }
