@@ -231,7 +231,7 @@ func (c *colourTerm) add(pt *photoPart, s *trackSample, p r3.Vec, hit *colourHit
 	pix := c.kl.pix
 	p00, p01, p10, p11 := &pix[j], &pix[j+1], &pix[j+kw], &pix[j+kw+1]
 	// Occlusion: the keyframe saw something else, nearer.
-	if math.Abs(float64(p00.depth)-pk.Z) > math.Max(0.01, 4*axialSigma(pk.Z, 0)) {
+	if math.Abs(float64(p00.depth)-pk.Z) > max(0.01, 4*axialSigma(pk.Z, 0)) {
 		return
 	}
 	tx, ty := float32(uf-float64(x0)), float32(vf-float64(y0))

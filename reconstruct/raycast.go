@@ -303,8 +303,8 @@ func (v *Volume) chunkIntervals(intr mesh.Intrinsics, camToWorld mesh.Pose, keys
 	// Rays start MinDepth from the eye; the most oblique one (through a
 	// corner pixel's far corner) is then at depth zReach, and no ray
 	// reaches a point nearer in depth.
-	corner := r3.Norm(intr.Ray(math.Max(intr.Cx+0.5, float64(w)-intr.Cx-0.5), math.Max(intr.Cy+0.5, float64(h)-intr.Cy-0.5)))
-	zReach := math.Max(v.opt.MinDepth/corner, 1e-6)
+	corner := r3.Norm(intr.Ray(max(intr.Cx+0.5, float64(w)-intr.Cx-0.5), max(intr.Cy+0.5, float64(h)-intr.Cy-0.5)))
+	zReach := max(v.opt.MinDepth/corner, 1e-6)
 	pad := v.opt.VoxelSize
 	for _, key := range keys {
 		lo := r3.Vec{X: float64(key.X) * blockLen, Y: float64(key.Y) * blockLen, Z: float64(key.Z) * blockLen}
@@ -327,9 +327,9 @@ func (v *Volume) chunkIntervals(intr mesh.Intrinsics, camToWorld mesh.Pose, keys
 				p = r3.Add(p, ez)
 			}
 			corners[c] = p
-			far2 = math.Max(far2, r3.Dot(p, p))
-			bmin = r3.Vec{X: math.Min(bmin.X, p.X), Y: math.Min(bmin.Y, p.Y), Z: math.Min(bmin.Z, p.Z)}
-			bmax = r3.Vec{X: math.Max(bmax.X, p.X), Y: math.Max(bmax.Y, p.Y), Z: math.Max(bmax.Z, p.Z)}
+			far2 = max(far2, r3.Dot(p, p))
+			bmin = r3.Vec{X: min(bmin.X, p.X), Y: min(bmin.Y, p.Y), Z: min(bmin.Z, p.Z)}
+			bmax = r3.Vec{X: max(bmax.X, p.X), Y: max(bmax.Y, p.Y), Z: max(bmax.Z, p.Z)}
 		}
 		if bmax.Z < zReach {
 			continue // behind the camera, or nearer than any ray starts
@@ -340,17 +340,17 @@ func (v *Volume) chunkIntervals(intr mesh.Intrinsics, camToWorld mesh.Pose, keys
 			u0, u1, v0, v1 = math.Inf(1), math.Inf(-1), math.Inf(1), math.Inf(-1)
 			for _, p := range corners {
 				u, vv := intr.Fx*p.X/p.Z+intr.Cx, intr.Fy*p.Y/p.Z+intr.Cy
-				u0, u1 = math.Min(u0, u), math.Max(u1, u)
-				v0, v1 = math.Min(v0, vv), math.Max(v1, vv)
+				u0, u1 = min(u0, u), max(u1, u)
+				v0, v1 = min(v0, vv), max(v1, vv)
 			}
 		} else {
 			// Reaching behind where rays start: bound x/z and y/z over the
 			// box's camera-frame extents with z in [zReach, max z].
 			z0, z1 := zReach, bmax.Z
-			u0 = intr.Fx*math.Min(bmin.X/z0, bmin.X/z1) + intr.Cx
-			u1 = intr.Fx*math.Max(bmax.X/z0, bmax.X/z1) + intr.Cx
-			v0 = intr.Fy*math.Min(bmin.Y/z0, bmin.Y/z1) + intr.Cy
-			v1 = intr.Fy*math.Max(bmax.Y/z0, bmax.Y/z1) + intr.Cy
+			u0 = intr.Fx*min(bmin.X/z0, bmin.X/z1) + intr.Cx
+			u1 = intr.Fx*max(bmax.X/z0, bmax.X/z1) + intr.Cx
+			v0 = intr.Fy*min(bmin.Y/z0, bmin.Y/z1) + intr.Cy
+			v1 = intr.Fy*max(bmax.Y/z0, bmax.Y/z1) + intr.Cy
 		}
 		tFar := float32(math.Sqrt(far2) + pad)
 		if u1 < 0 || v1 < 0 || u0 > float64(w-1) || v0 > float64(h-1) {
@@ -369,7 +369,7 @@ func (v *Volume) chunkIntervals(intr mesh.Intrinsics, camToWorld mesh.Pose, keys
 	}
 }
 
-func clampF(x, lo, hi float64) float64 { return math.Max(lo, math.Min(hi, x)) }
+func clampF(x, lo, hi float64) float64 { return max(lo, min(hi, x)) }
 
 // bounds returns the world-space box of all allocated blocks.
 func (v *Volume) bounds() (lo, hi r3.Vec, ok bool) {
@@ -402,8 +402,8 @@ func (s *sampler) castRay(o, d, lo, hi r3.Vec, near, far, from float64) (r3.Vec,
 	if !hit {
 		return r3.Vec{}, r3.Vec{}, false
 	}
-	t0 = math.Max(math.Max(t0, v.opt.MinDepth), near)
-	t1 = math.Min(math.Min(t1, v.opt.MaxDepth*2), far)
+	t0 = max(max(t0, v.opt.MinDepth), near)
+	t1 = min(min(t1, v.opt.MaxDepth*2), far)
 	if from > t0 && from < t1 {
 		if p, n, hit := s.march(o, d, from, t1); hit {
 			return p, n, true
@@ -439,7 +439,7 @@ func (s *sampler) march(o, d r3.Vec, t0, t1 float64) (r3.Vec, r3.Vec, bool) {
 			exit := min(faceExit(key.X, side, blockLen, o.X, inv.X),
 				faceExit(key.Y, side, blockLen, o.Y, inv.Y),
 				faceExit(key.Z, side, blockLen, o.Z, inv.Z))
-			t = math.Max(exit, t) + vs*1e-3
+			t = max(exit, t) + vs*1e-3
 			havePrev = false
 			continue
 		}
@@ -470,7 +470,7 @@ func (s *sampler) march(o, d r3.Vec, t0, t1 float64) (r3.Vec, r3.Vec, bool) {
 		prevT, prevD, havePrev = t, D, true
 		// The field is a distance in units of μ: stepping 0.8 of it cannot
 		// jump over the crossing, and never less than half a voxel.
-		t += math.Max(0.8*float64(D)*mu, vs/2)
+		t += max(0.8*float64(D)*mu, vs/2)
 	}
 	return r3.Vec{}, r3.Vec{}, false
 }
@@ -516,7 +516,7 @@ func slab(o, d, lo, hi r3.Vec) (t0, t1 float64, hit bool) {
 		if ta > tb {
 			ta, tb = tb, ta
 		}
-		t0, t1 = math.Max(t0, ta), math.Min(t1, tb)
+		t0, t1 = max(t0, ta), min(t1, tb)
 	}
 	return t0, t1, t0 <= t1 && t1 >= 0
 }

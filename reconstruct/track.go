@@ -258,11 +258,11 @@ func (lv *level) equaliseNormals(step int, workers int) {
 			occupied++
 		}
 	}
-	mean := float64(lv.valid) / math.Max(1, float64(occupied))
+	mean := float64(lv.valid) / max(1, float64(occupied))
 	for b, c := range count {
 		lv.binWeight[b] = 0
 		if c > 0 {
-			lv.binWeight[b] = math.Min(10, mean/float64(c))
+			lv.binWeight[b] = min(10, mean/float64(c))
 		}
 	}
 }
@@ -427,7 +427,7 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 	// The share of the pixels that land on the model which pair with it
 	// (pixels beyond the model, such as a far wall the volume does not
 	// hold, say nothing either way).
-	res.InlierRatio = float64(sys.Pairs) / math.Max(1, float64(a.cands))
+	res.InlierRatio = float64(sys.Pairs) / max(1, float64(a.cands))
 	moved := predicted.Inv().Mul(pose)
 	_, turn := moved.AxisAngle()
 	switch {
@@ -601,7 +601,7 @@ func (t *Tracker) pass(l int, camToWorld, worldToModel mesh.Pose, maxD, cosMax f
 			cand += pp.cand
 			pair += pp.pair
 		}
-		overlap = float64(pair) / math.Max(1, float64(cand))
+		overlap = float64(pair) / max(1, float64(cand))
 	}
 	return sums, cands, gainSums, overlap
 }

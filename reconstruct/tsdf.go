@@ -549,7 +549,7 @@ func (v *Volume) frustumBlocks(dst []int32, k mesh.Intrinsics, worldToCam mesh.P
 		if p.Z+radius < v.opt.MinDepth || p.Z-radius > v.opt.MaxDepth+v.mu {
 			continue
 		}
-		z := math.Max(p.Z, v.opt.MinDepth)
+		z := max(p.Z, v.opt.MinDepth)
 		u, vv := k.Fx*p.X/z+k.Cx, k.Fy*p.Y/z+k.Cy
 		mu, mv := k.Fx*radius/z+1, k.Fy*radius/z+1
 		if u < -mu || u > float64(k.Width)+mu || vv < -mv || vv > float64(k.Height)+mv {
@@ -614,10 +614,10 @@ func (pr *projector) behindAll(base r3.Vec) bool {
 		if p.Z < pr.minD {
 			return false
 		}
-		zmin = math.Min(zmin, p.Z)
+		zmin = min(zmin, p.Z)
 		u, v := pr.fx*p.X/p.Z+pr.cx+0.5, pr.fy*p.Y/p.Z+pr.cy+0.5
-		u0, u1 = math.Min(u0, u), math.Max(u1, u)
-		v0, v1 = math.Min(v0, v), math.Max(v1, v)
+		u0, u1 = min(u0, u), max(u1, u)
+		v0, v1 = min(v0, v), max(v1, v)
 	}
 	if u1 < 0 || v1 < 0 || u0 >= pr.fw || v0 >= pr.fh {
 		return true // nothing projects into the image

@@ -205,15 +205,15 @@ func (pw *pixelWeigher) row(depth []float32, y int, dst, behind []float32) {
 		if nn == 0 {
 			continue
 		}
-		c := math.Min(1, math.Abs(nx*rx+ny*ry+nz)/math.Sqrt(nn*(rx*rx+ry*ry+1)))
+		c := min(1, math.Abs(nx*rx+ny*ry+nz)/math.Sqrt(nn*(rx*rx+ry*ry+1)))
 		if c < pw.cosMax {
 			continue // seen beyond MaxAngle
 		}
 		s := axialSigma(z, acos01(c))
 		out[x] = float32(pw.ref2 / (s * s))
 		if back != nil {
-			band := math.Max(opt.BehindSigmas*axialSigma(z, 0), opt.BehindMin)
-			back[x] = float32(band / math.Max(c, pw.behindCos))
+			band := max(opt.BehindSigmas*axialSigma(z, 0), opt.BehindMin)
+			back[x] = float32(band / max(c, pw.behindCos))
 		}
 	}
 }
