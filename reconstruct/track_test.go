@@ -291,3 +291,71 @@ func plateTracker(t *testing.T, s *plateScene, v0 PlateView, colour bool) *Track
 	tr.SetKeyframe(Luminance(v0.Color, nil), v0.Depth, mesh.Identity())
 	return tr
 }
+
+// TestDownDepthKeepsObliqueSurfaces halves the depth image of a plane
+// seen at 75° (through (0, 0, 0.8 m), its normal turned 75° from the
+// optical axis) and compares each coarse depth with the plane's exact
+// depth on the coarse pixel's ray (ray–plane intersection, with the
+// coarse intrinsics of mesh.Intrinsics.Scaled). On a plane 1/z is
+// affine in the pixel coordinates, so the mean of a block's four depths
+// differs from the depth at its centre only by z's curvature across a
+// pixel, about (Δz)²/z for a row's step Δz: 0.06 mm at 0.8 m (7 mm a
+// row), 0.1 mm at 2 m (14 mm a row); 0.25 mm allows for that and
+// float32 (0.15 mm measured). Keeping only the pixels within 3σ_z of
+// the block's nearest (4.5 mm at 0.8 m, less than a row's step) moved
+// the coarse depth toward the camera by up to 17 mm. A block across a real discontinuity (10 cm) still keeps
+// its near pixels alone, and one across a step within the noise
+// averages all four.
+func TestDownDepthKeepsObliqueSurfaces(t *testing.T) {
+	intr := mesh.Intrinsics{Width: 640, Height: 480, Fx: 525, Fy: 525, Cx: 319.5, Cy: 239.5}
+	th := 75 * math.Pi / 180
+	n := r3.Vec{Y: math.Sin(th), Z: math.Cos(th)}
+	planeDepth := func(k mesh.Intrinsics, u, v float64) float64 {
+		den := r3.Dot(n, k.Ray(u, v))
+		if den <= 0 {
+			return 0
+		}
+		if z := 0.8 * n.Z / den; z > 0.4 && z < 2 {
+			return z
+		}
+		return 0
+	}
+	depth := make([]float32, intr.Width*intr.Height)
+	for y := 0; y < intr.Height; y++ {
+		for x := 0; x < intr.Width; x++ {
+			depth[y*intr.Width+x] = float32(planeDepth(intr, float64(x), float64(y)))
+		}
+	}
+	tr, err := NewTracker(nil, intr, DefaultTrackOptions())
+	if err != nil {
+		t.Fatal(err)
+	}
+	coarse := intr.Scaled(2)
+	dst := make([]float32, coarse.Width*coarse.Height)
+	tr.downDepth(depth, intr.Width, dst, coarse.Width, coarse.Height)
+	worst, checked := 0.0, 0
+	for y := 0; y < coarse.Height; y++ {
+		for x := 0; x < coarse.Width; x++ {
+			i := 2*y*intr.Width + 2*x
+			if depth[i] == 0 || depth[i+1] == 0 || depth[i+intr.Width] == 0 || depth[i+intr.Width+1] == 0 {
+				continue
+			}
+			exact := planeDepth(coarse, float64(x), float64(y))
+			worst = math.Max(worst, math.Abs(float64(dst[y*coarse.Width+x])-exact))
+			checked++
+		}
+	}
+	if checked < 10000 || worst > 0.25e-3 {
+		t.Errorf("oblique plane: coarse depth off by up to %.3f mm over %d pixels (≤ 0.25 mm)", worst*1000, checked)
+	}
+
+	// Two blocks: a 10 cm step (keep the near pixels) and a 1 mm one
+	// (average all four).
+	small := mesh.Intrinsics{Width: 4, Height: 2, Fx: 525, Fy: 525, Cx: 1.5, Cy: 0.5}
+	in := []float32{0.5, 0.6, 0.5, 0.501, 0.5, 0.6, 0.5, 0.501}
+	out := make([]float32, 2)
+	tr.downDepth(in, small.Width, out, 2, 1)
+	if out[0] != 0.5 || math.Abs(float64(out[1])-0.5005) > 1e-6 {
+		t.Errorf("blocks across a 10 cm and a 1 mm step: got %v, want [0.5 0.5005]", out)
+	}
+}
