@@ -219,6 +219,7 @@ func handheldTrackOptions() TrackOptions {
 	o := DefaultTrackOptions()
 	o.ColorSigma = 3
 	o.ColorSubsample = 2
+	o.DepthFilter = 2
 	return o
 }
 
@@ -934,6 +935,10 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 		if graph {
 			if isNode {
 				n := graphNode{placed: placed, pose: pose, depth: slices.Clone(fr.Depth)}
+				if placed > 0 && f.opt.Track.DepthFilter > 0 {
+					// tracking has just filtered this frame's depth
+					n.tdepth = tr.filteredDepth()
+				}
 				if colour {
 					n.lum = slices.Clone(lum)
 				}
