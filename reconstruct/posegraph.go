@@ -283,6 +283,7 @@ func (g *poseGraph) build(ctx context.Context, intr mesh.Intrinsics, topt TrackO
 	}
 	// Each node's depth is filtered once here (or was by the tracker that
 	// placed it), not again by every registration.
+	var filterTmp []float32
 	for k := range g.nodes {
 		n := &g.nodes[k]
 		if n.tdepth != nil {
@@ -290,8 +291,11 @@ func (g *poseGraph) build(ctx context.Context, intr mesh.Intrinsics, topt TrackO
 		}
 		n.tdepth = n.depth
 		if topt.DepthFilter > 0 {
+			if len(filterTmp) != len(n.depth) {
+				filterTmp = make([]float32, len(n.depth))
+			}
 			n.tdepth = make([]float32, len(n.depth))
-			bilateralDepth(n.depth, n.tdepth, make([]float32, len(n.depth)), intr.Width, intr.Height, topt.DepthFilter, workers)
+			bilateralDepth(n.depth, n.tdepth, filterTmp, intr.Width, intr.Height, topt.DepthFilter, workers)
 		}
 	}
 	topt.DepthFilter = 0

@@ -724,31 +724,26 @@ func (lv *level) gather(step int, lum []float32, workers int) {
 // not lie behind a depth jump from the block's nearest one (downDepth),
 // and vertex and normal maps follow.
 func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
+	// The masked depth goes to level 0, or to raw for the filter to
+	// write level 0 from.
+	in := t.levels[0].depth
 	if t.opt.DepthFilter > 0 {
 		if len(t.raw) != len(depth) {
 			t.raw = make([]float32, len(depth))
-		}
-		copy(t.raw, depth)
-		if mask != nil {
-			for i, m := range mask {
-				if !m {
-					t.raw[i] = 0
-				}
-			}
-		}
-		if len(t.filterTmp) != len(depth) {
 			t.filterTmp = make([]float32, len(depth))
 		}
-		bilateralDepth(t.raw, t.levels[0].depth, t.filterTmp, t.intr.Width, t.intr.Height, t.opt.DepthFilter, t.opt.Workers)
-	} else {
-		copy(t.levels[0].depth, depth)
-		if mask != nil {
-			for i, m := range mask {
-				if !m {
-					t.levels[0].depth[i] = 0
-				}
+		in = t.raw
+	}
+	copy(in, depth)
+	if mask != nil {
+		for i, m := range mask {
+			if !m {
+				in[i] = 0
 			}
 		}
+	}
+	if t.opt.DepthFilter > 0 {
+		bilateralDepth(in, t.levels[0].depth, t.filterTmp, t.intr.Width, t.intr.Height, t.opt.DepthFilter, t.opt.Workers)
 	}
 	for l := 1; l < pyramidLevels; l++ {
 		src, dst := &t.levels[l-1], &t.levels[l]
@@ -802,20 +797,23 @@ func bilateralDepth(src, dst, tmp []float32, w, h int, k float64, workers int) {
 	for d := -bilateralRadius; d <= bilateralRadius; d++ {
 		spatial[d+bilateralRadius] = float32(math.Exp(-float64(d*d) / (2 * bilateralSpatial * bilateralSpatial)))
 	}
-	// pass filters n samples of in, stride apart from first, into out
-	pass := func(in, out []float32, first, stride, n int) {
-		for i := 0; i < n; i++ {
-			z := in[first+i*stride]
+	// rangeScale is the range table's steps per metre of depth
+	// difference around depth z; a missing neighbour (0) lands beyond
+	// the table
+	rangeScale := func(z float32) float32 {
+		return float32(rangeSteps / (3 * k * axialSigma(float64(z), 0)))
+	}
+	forRows(h, workers, func(y int) {
+		in, out := src[y*w:(y+1)*w], tmp[y*w:(y+1)*w]
+		for x, z := range in {
 			if !(z > 0) {
-				out[first+i*stride] = 0
+				out[x] = 0
 				continue
 			}
-			// table steps per metre of depth difference; a missing
-			// neighbour (0) lands beyond the table
-			scale := float32(rangeSteps / (3 * k * axialSigma(float64(z), 0)))
+			scale := rangeScale(z)
 			var sw, sz float32
-			for d := max(-bilateralRadius, -i); d <= min(bilateralRadius, n-1-i); d++ {
-				q := in[first+(i+d)*stride]
+			for d := max(-bilateralRadius, -x); d <= min(bilateralRadius, w-1-x); d++ {
+				q := in[x+d]
 				u := abs32(q-z) * scale
 				if !(u < rangeSteps) {
 					continue
@@ -824,13 +822,12 @@ func bilateralDepth(src, dst, tmp []float32, w, h int, k float64, workers int) {
 				sw += wt
 				sz += wt * q
 			}
-			out[first+i*stride] = sz / sw
+			out[x] = sz / sw
 		}
-	}
-	forRows(h, workers, func(y int) { pass(src, tmp, y*w, 1, w) })
+	})
 	// The column pass reads whole rows at a time: each output row keeps
-	// its pixels' sums (added in the order pass adds them) while the
-	// rows around it go by.
+	// its pixels' sums (added in window order, as the row pass adds
+	// them) while the rows around it go by.
 	par.For((h+bandRows-1)/bandRows, workers, func(b int) {
 		sw := make([]float32, w)
 		sz := make([]float32, w)
@@ -842,7 +839,7 @@ func bilateralDepth(src, dst, tmp []float32, w, h int, k float64, workers int) {
 				sw[x], sz[x] = 0, 0
 				scale[x] = 0
 				if z > 0 {
-					scale[x] = float32(rangeSteps / (3 * k * axialSigma(float64(z), 0)))
+					scale[x] = rangeScale(z)
 				}
 			}
 			for d := max(-bilateralRadius, -y); d <= min(bilateralRadius, h-1-y); d++ {
