@@ -793,16 +793,16 @@ var rangeTable = func() (t [rangeSteps]float32) {
 // stay without. tmp holds the row pass (w·h). Rows are shared among
 // workers goroutines; the result does not depend on their number.
 func bilateralDepth(src, dst, tmp []float32, w, h int, k float64, workers int) {
-	var spatial [2*bilateralRadius + 1]float32
-	for d := -bilateralRadius; d <= bilateralRadius; d++ {
-		spatial[d+bilateralRadius] = float32(math.Exp(-float64(d*d) / (2 * bilateralSpatial * bilateralSpatial)))
+	// tab[|d|] holds the spatial weight of a pixel d away times each
+	// range weight of rangeTable: the products the sums take.
+	var tab [bilateralRadius + 1][rangeSteps]float32
+	for d := range tab {
+		s := float32(math.Exp(-float64(d*d) / (2 * bilateralSpatial * bilateralSpatial)))
+		for i, r := range rangeTable {
+			tab[d][i] = s * r
+		}
 	}
-	// rangeScale is the range table's steps per metre of depth
-	// difference around depth z; a missing neighbour (0) lands beyond
-	// the table
-	rangeScale := func(z float32) float32 {
-		return float32(rangeSteps / (3 * k * axialSigma(float64(z), 0)))
-	}
+	k3 := 3 * k
 	forRows(h, workers, func(y int) {
 		in, out := src[y*w:(y+1)*w], tmp[y*w:(y+1)*w]
 		for x, z := range in {
@@ -810,64 +810,93 @@ func bilateralDepth(src, dst, tmp []float32, w, h int, k float64, workers int) {
 				out[x] = 0
 				continue
 			}
-			scale := rangeScale(z)
+			scale := bilateralScale(z, k3)
 			var sw, sz float32
-			for d := max(-bilateralRadius, -x); d <= min(bilateralRadius, w-1-x); d++ {
-				q := in[x+d]
-				u := abs32(q-z) * scale
-				if !(u < rangeSteps) {
-					continue
+			if x >= bilateralRadius && x < w-bilateralRadius {
+				// The whole window, in the order of the loop below.
+				q := in[x-2 : x+3 : x+3]
+				w0 := rangeWeight(&tab[2], q[0], z, scale)
+				w1 := rangeWeight(&tab[1], q[1], z, scale)
+				w2 := rangeWeight(&tab[0], q[2], z, scale)
+				w3 := rangeWeight(&tab[1], q[3], z, scale)
+				w4 := rangeWeight(&tab[2], q[4], z, scale)
+				sw = w0 + w1 + w2 + w3 + w4
+				sz = w0*q[0] + w1*q[1] + w2*q[2] + w3*q[3] + w4*q[4]
+			} else {
+				for d := max(-bilateralRadius, -x); d <= min(bilateralRadius, w-1-x); d++ {
+					q := in[x+d]
+					wt := rangeWeight(&tab[max(d, -d)], q, z, scale)
+					sw += wt
+					sz += wt * q
 				}
-				wt := spatial[d+bilateralRadius] * rangeTable[int(u)]
-				sw += wt
-				sz += wt * q
 			}
 			out[x] = sz / sw
 		}
 	})
-	// The column pass reads whole rows at a time: each output row keeps
-	// its pixels' sums (added in window order, as the row pass adds
-	// them) while the rows around it go by.
-	par.For((h+bandRows-1)/bandRows, workers, func(b int) {
-		sw := make([]float32, w)
-		sz := make([]float32, w)
-		scale := make([]float32, w)
-		for y := b * bandRows; y < min(h, (b+1)*bandRows); y++ {
-			centre := tmp[y*w : (y+1)*w]
-			out := dst[y*w : (y+1)*w]
+	// The column pass: each pixel of an output row sums the same pixel
+	// of the five rows around it, in window order (as the row pass adds).
+	forRows(h, workers, func(y int) {
+		centre := tmp[y*w : (y+1)*w]
+		out := dst[y*w : (y+1)*w]
+		if y < bilateralRadius || y >= h-bilateralRadius {
 			for x, z := range centre {
-				sw[x], sz[x] = 0, 0
-				scale[x] = 0
-				if z > 0 {
-					scale[x] = rangeScale(z)
-				}
-			}
-			for d := max(-bilateralRadius, -y); d <= min(bilateralRadius, h-1-y); d++ {
-				row := tmp[(y+d)*w : (y+d+1)*w]
-				ws := spatial[d+bilateralRadius]
-				for x, q := range row {
-					z := centre[x]
-					if !(z > 0) {
-						continue
-					}
-					u := abs32(q-z) * scale[x]
-					if !(u < rangeSteps) {
-						continue
-					}
-					wt := ws * rangeTable[int(u)]
-					sw[x] += wt
-					sz[x] += wt * q
-				}
-			}
-			for x, z := range centre {
-				if z > 0 {
-					out[x] = sz[x] / sw[x]
-				} else {
+				if !(z > 0) {
 					out[x] = 0
+					continue
 				}
+				scale := bilateralScale(z, k3)
+				var sw, sz float32
+				for d := max(-bilateralRadius, -y); d <= min(bilateralRadius, h-1-y); d++ {
+					q := tmp[(y+d)*w+x]
+					wt := rangeWeight(&tab[max(d, -d)], q, z, scale)
+					sw += wt
+					sz += wt * q
+				}
+				out[x] = sz / sw
 			}
+			return
+		}
+		r0 := tmp[(y-2)*w : (y-1)*w]
+		r1 := tmp[(y-1)*w : y*w]
+		r3 := tmp[(y+1)*w : (y+2)*w]
+		r4 := tmp[(y+2)*w : (y+3)*w]
+		r0, r1, r3, r4, out = r0[:len(centre)], r1[:len(centre)], r3[:len(centre)], r4[:len(centre)], out[:len(centre)]
+		for x, z := range centre {
+			if !(z > 0) {
+				out[x] = 0
+				continue
+			}
+			scale := bilateralScale(z, k3)
+			q0, q1, q3, q4 := r0[x], r1[x], r3[x], r4[x]
+			w0 := rangeWeight(&tab[2], q0, z, scale)
+			w1 := rangeWeight(&tab[1], q1, z, scale)
+			w2 := rangeWeight(&tab[0], z, z, scale)
+			w3 := rangeWeight(&tab[1], q3, z, scale)
+			w4 := rangeWeight(&tab[2], q4, z, scale)
+			out[x] = (w0*q0 + w1*q1 + w2*z + w3*q3 + w4*q4) / (w0 + w1 + w2 + w3 + w4)
 		}
 	})
+}
+
+// bilateralScale is bilateralDepth's range table steps per metre of
+// depth difference around depth z, for k3 = 3k: rangeSteps/(3k·σ_z(z))
+// with axialSigma(z, 0)'s expression written out, so that it inlines.
+func bilateralScale(z float32, k3 float64) float32 {
+	zz := float64(z)
+	return float32(rangeSteps / (k3 * (0.0012 + 0.0019*(zz-0.4)*(zz-0.4))))
+}
+
+// rangeWeight is the weight t gives a neighbour of depth q around a
+// centre of depth z (0 beyond the table, as for a missing neighbour,
+// whose difference is the centre's whole depth). Adding a 0 weight and
+// a 0 product leaves bilateralDepth's sums as skipping the neighbour
+// would: they are finite and start at +0.
+func rangeWeight(t *[rangeSteps]float32, q, z, scale float32) float32 {
+	u := abs32(q-z) * scale
+	if !(u < rangeSteps) {
+		return 0
+	}
+	return t[int(u)]
 }
 
 // inf32 is float32 +Inf.
