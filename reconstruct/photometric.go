@@ -98,7 +98,7 @@ func (t *Tracker) SetKeyframe(lum, depth []float32, camToWorld mesh.Pose) {
 	copy(k.levels[0].lum, lum)
 	for l := 1; l < pyramidLevels; l++ {
 		src, dst := &k.levels[l-1], &k.levels[l]
-		t.downDepth(src.depth, src.intr.Width, dst.depth, dst.intr.Width, dst.intr.Height)
+		downDepth(src.depth, src.intr.Width, dst.depth, dst.intr.Width, dst.intr.Height, t.opt.Workers)
 		downLuminance(src.lum, src.depth, src.intr.Width, src.intr.Height, dst.lum, t.opt.Workers)
 	}
 	for l := range k.levels {

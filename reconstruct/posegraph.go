@@ -234,14 +234,15 @@ func (t *Tracker) useNode(a *graphNode) {
 // colour, as the keyframe), which useNode made the tracker's, starting
 // from b's current pose, and returns the edge a→b, or false when the
 // registration is refused (lost, too few pairs, or too far from the
-// start).
-func (t *Tracker) registerWith(ctx context.Context, a, b *graphNode, lo LoopOptions) (graphEdge, bool, error) {
+// start). frames holds the frames the tracker prepared lately; bi is
+// b's index among the nodes.
+func (t *Tracker) registerWith(ctx context.Context, a, b *graphNode, bi int, frames *frameCache, lo LoopOptions) (graphEdge, bool, error) {
 	colour := t.opt.ColorSigma > 0 && a.lum != nil && b.lum != nil
 	lum := b.lum
 	if !colour {
 		lum = nil
 	}
-	res, err := t.TrackColor(ctx, b.tdepth, lum, nil, b.pose)
+	res, err := t.trackPrepared(ctx, frames.use(t, bi, b.tdepth, lum), b.pose)
 	if err != nil || res.Lost || res.Pairs < lo.MinPairs {
 		return graphEdge{}, false, err
 	}
@@ -254,6 +255,69 @@ func (t *Tracker) registerWith(ctx context.Context, a, b *graphNode, lo LoopOpti
 	// iteration's) before the result: two more passes to measure it at
 	// the result cost a tenth of the graph's time and moved no node.
 	return graphEdge{z: a.pose.Inv().Mul(res.CamToWorld), info: res.system.Normal()}, true, nil
+}
+
+// preparedFrame is one node's frame made ready for registration
+// (Tracker.prepare): each pyramid level's samples and bands, all that
+// alignment reads of the frame, and whether they carry luminance.
+type preparedFrame struct {
+	node    int
+	colour  bool
+	samples [pyramidLevels][]trackSample
+	bands   [pyramidLevels][]int
+}
+
+// frameCache keeps the frames one tracker prepared for its last
+// registrations, up to size of them (7–8 MB each at 640×480), so that a
+// node registered against several later nodes has its pyramid built
+// once: building it took about a third of the pose graph's time.
+type frameCache struct {
+	frames []*preparedFrame
+	size   int
+}
+
+// use makes node k's frame (its depth for tracking, and its luminance
+// or nil) the frame t aligns next, from the cache or prepared anew in
+// place of the cached frame of the lowest node index (registrations
+// come in rising node order), and reports whether the colour term
+// applies, as Tracker.prepare does. The tracker's levels then share
+// their samples with the cache: only use may prepare frames on t.
+func (c *frameCache) use(t *Tracker, k int, depth, lum []float32) bool {
+	colour := lum != nil && t.key != nil && t.opt.ColorSigma > 0
+	var p *preparedFrame
+	for _, q := range c.frames {
+		if q.node == k && q.colour == colour {
+			p = q
+			break
+		}
+	}
+	fresh := p == nil
+	if fresh {
+		if len(c.frames) < c.size {
+			p = &preparedFrame{}
+			c.frames = append(c.frames, p)
+		} else {
+			p = c.frames[0]
+			for _, q := range c.frames[1:] {
+				if q.node < p.node {
+					p = q
+				}
+			}
+		}
+		p.node, p.colour = k, colour
+	}
+	// The levels take the frame's buffers: to fill, when fresh (reusing
+	// the memory of the frame it replaces), or as they are.
+	for l := range t.levels {
+		t.levels[l].samples, t.levels[l].bands = p.samples[l], p.bands[l]
+	}
+	if fresh {
+		t.prepare(depth, lum, nil)
+		for l := range t.levels {
+			p.samples[l], p.bands[l] = t.levels[l].samples, t.levels[l].bands
+		}
+	}
+	return colour
 }
 
 // poseGraph holds the nodes and edges of one optimisation.
@@ -303,11 +367,26 @@ func (g *poseGraph) build(ctx context.Context, intr mesh.Intrinsics, topt TrackO
 	got := make([]graphEdge, len(pairs))
 	ok := make([]bool, len(pairs))
 	errs := make([]error, len(pairs))
-	var wg sync.WaitGroup
-	next := make(chan int)
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
+	// Runs of consecutive later nodes go to the workers, about three
+	// runs a worker: within a run the earlier nodes' frames repeat from
+	// one later node to the next, and the worker's cache holds them.
+	var runs [][2]int
+	target := max(1, len(pairs)/(3*workers))
+	cacheSize := 1
+	for j, n := 0, 0; j < len(groups); j++ {
+		cacheSize = max(cacheSize, len(groups[j]))
+		if len(runs) == 0 || n >= target {
+			runs = append(runs, [2]int{j, j})
+			n = 0
+		}
+		runs[len(runs)-1][1] = j + 1
+		n += len(groups[j])
+	}
+	var wg sync.WaitGroup
+	next := make(chan [2]int)
 	for w := 0; w < workers; w++ {
 		tr, err := NewTracker(nil, intr, topt)
 		if err != nil {
@@ -316,23 +395,27 @@ func (g *poseGraph) build(ctx context.Context, intr mesh.Intrinsics, topt TrackO
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			for j := range next {
-				// the later node's model (more of the scene fused), the
-				// earlier nodes' frames
-				tr.useNode(&g.nodes[j])
-				for _, k := range groups[j] {
-					p := pairs[k]
-					e, good, err := tr.registerWith(ctx, &g.nodes[p.j], &g.nodes[p.i], lo)
-					e.i, e.j = p.j, p.i
-					got[k], ok[k], errs[k] = e, good, err
+			frames := &frameCache{size: cacheSize}
+			for run := range next {
+				for j := run[0]; j < run[1]; j++ {
+					if len(groups[j]) == 0 {
+						continue
+					}
+					// the later node's model (more of the scene fused), the
+					// earlier nodes' frames
+					tr.useNode(&g.nodes[j])
+					for _, k := range groups[j] {
+						p := pairs[k]
+						e, good, err := tr.registerWith(ctx, &g.nodes[p.j], &g.nodes[p.i], p.i, frames, lo)
+						e.i, e.j = p.j, p.i
+						got[k], ok[k], errs[k] = e, good, err
+					}
 				}
 			}
 		}()
 	}
-	for j := range groups {
-		if len(groups[j]) > 0 {
-			next <- j
-		}
+	for _, run := range runs {
+		next <- run
 	}
 	close(next)
 	wg.Wait()

@@ -4,6 +4,7 @@ import (
 	"context"
 	"math"
 	"math/rand/v2"
+	"path/filepath"
 	"testing"
 
 	"gonum.org/v1/gonum/diff/fd"
@@ -435,4 +436,115 @@ func TestNodeModelRoundTrip(t *testing.T) {
 	if hits == 0 {
 		t.Fatal("the raycast hit nothing")
 	}
+}
+
+// TestFrameCacheRegistrations checks that registrations through a
+// frameCache (frames prepared once and reused, evicted when it is full)
+// give the same edges, to the bit, as TrackColor preparing every frame
+// anew: on the nodes of a half-size handheld sweep, each with the scene
+// volume's raycast after its frame was fused at its true pose, a cache
+// of two frames for up to four earlier nodes a later node.
+func TestFrameCacheRegistrations(t *testing.T) {
+	if testing.Short() {
+		t.Skip("renders a sweep")
+	}
+	dir := synthSweep(t, "bracket", halfSizeHandheld(30))
+	sw, err := LoadSweep(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tp, err := ReadTruthPoses(filepath.Join(dir, TruthDir, TruthPosesName))
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx := context.Background()
+	opt := DefaultFuseOptions()
+	scene, err := NewVolume(opt.sceneTSDF())
+	if err != nil {
+		t.Fatal(err)
+	}
+	var intr mesh.Intrinsics
+	var tr *Tracker
+	f := &fuser{opt: opt}
+	var nodes []graphNode
+	for _, idx := range sw.Usable() {
+		fr, err := sw.Frame(idx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if tr == nil {
+			intr = fr.Intr
+			if tr, err = NewTracker(scene, intr, opt.Track); err != nil {
+				t.Fatal(err)
+			}
+		}
+		pose := tp.CamToWorld[idx]
+		if err := f.integrateScene(ctx, scene, fr, pose); err != nil {
+			t.Fatal(err)
+		}
+		if idx%3 != 0 {
+			continue
+		}
+		tr.UpdateModel(ctx, pose)
+		tdepth := make([]float32, len(fr.Depth))
+		bilateralDepth(fr.Depth, tdepth, make([]float32, len(fr.Depth)), intr.Width, intr.Height, opt.Track.DepthFilter, 0)
+		nodes = append(nodes, graphNode{placed: idx, pose: pose, depth: fr.Depth, tdepth: tdepth,
+			lum: Luminance(fr.Color, nil), model: compactModel(tr.model, pose)})
+	}
+	topt := opt.Track
+	topt.DepthFilter = 0
+	cached, err := NewTracker(nil, intr, topt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	plain, err := NewTracker(nil, intr, topt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	frames := &frameCache{size: 2}
+	lo := opt.Loop
+	lo.MinPairs = 500 // a quarter of the full-size images' 2000
+	pairs, hits := 0, 0
+	for j := range nodes {
+		cached.useNode(&nodes[j])
+		plain.useNode(&nodes[j])
+		for i := max(0, j-4); i < j; i++ {
+			a, b := &nodes[j], &nodes[i]
+			before := len(frames.frames)
+			inCache := false
+			for _, p := range frames.frames {
+				inCache = inCache || p.node == i
+			}
+			got, gotOK, err := cached.registerWith(ctx, a, b, i, frames, lo)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if inCache {
+				hits++
+			} else if len(frames.frames) == before && before < frames.size {
+				t.Fatalf("pair %d–%d: a new frame was not cached", i, j)
+			}
+			res, err := plain.TrackColor(ctx, b.tdepth, b.lum, nil, b.pose)
+			if err != nil {
+				t.Fatal(err)
+			}
+			moved := b.pose.Inv().Mul(res.CamToWorld)
+			wantOK := !res.Lost && res.Pairs >= lo.MinPairs &&
+				r3.Norm(moved.T) <= lo.MaxShift && mesh.RotationAngle(moved, mesh.Identity()) <= lo.MaxTurn
+			if gotOK != wantOK {
+				t.Fatalf("pair %d–%d: registered %v through the cache, %v anew", i, j, gotOK, wantOK)
+			}
+			if !gotOK {
+				continue
+			}
+			pairs++
+			if want := a.pose.Inv().Mul(res.CamToWorld); got.z != want || got.info != res.system.Normal() {
+				t.Fatalf("pair %d–%d: edge %v through the cache, %v anew", i, j, got.z, a.pose.Inv().Mul(res.CamToWorld))
+			}
+		}
+	}
+	if pairs < 10 || hits < 5 {
+		t.Fatalf("%d pairs registered, %d cache hits: the test needs more", pairs, hits)
+	}
+	t.Logf("%d pairs, %d cache hits", pairs, hits)
 }

@@ -396,6 +396,14 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 	if lum != nil && len(lum) != len(depth) {
 		return TrackResult{}, fmt.Errorf("reconstruct: luminance has %d pixels for %d", len(lum), len(depth))
 	}
+	return t.trackPrepared(ctx, t.prepare(depth, lum, mask), predicted)
+}
+
+// prepare makes a frame ready for align, as TrackColor takes it: it
+// builds the depth pyramid and, when the colour term applies (it
+// reports whether), the luminance pyramid, and gathers each level's
+// samples, which are all that align reads of the frame.
+func (t *Tracker) prepare(depth, lum []float32, mask []bool) bool {
 	t.buildPyramid(depth, mask)
 	colour := lum != nil && t.key != nil && t.opt.ColorSigma > 0
 	if colour {
@@ -412,6 +420,13 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 		}
 		t.levels[l].gather(levelStep(l), ll, t.opt.Workers)
 	}
+	return colour
+}
+
+// trackPrepared is TrackColor for the frame prepare made ready, colour
+// being what prepare reported.
+func (t *Tracker) trackPrepared(ctx context.Context, colour bool, predicted mesh.Pose) (TrackResult, error) {
+	t.placed = false
 	res := TrackResult{CamToWorld: predicted}
 	a, lost, err := t.align(ctx, predicted, colour)
 	if err != nil || lost != "" {
@@ -747,7 +762,7 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 	}
 	for l := 1; l < pyramidLevels; l++ {
 		src, dst := &t.levels[l-1], &t.levels[l]
-		t.downDepth(src.depth, src.intr.Width, dst.depth, dst.intr.Width, dst.intr.Height)
+		downDepth(src.depth, src.intr.Width, dst.depth, dst.intr.Width, dst.intr.Height, t.opt.Workers)
 	}
 	for l := range t.levels {
 		lv := &t.levels[l]
@@ -924,10 +939,11 @@ const downJump = 0.02
 // pose back, a few tenths of a millimetre a step (0.54 mm off on
 // average at the end, 1.87 mm at worst). With downJump the coarsest
 // level ends 0.94 mm off on average, the middle 0.58 mm, the finest
-// 0.41 mm (1.70 mm at worst). Rows are shared among the tracker's
-// workers; each output pixel depends on its block alone.
-func (t *Tracker) downDepth(src []float32, sw int, dst []float32, dw, dh int) {
-	forRows(dh, t.opt.Workers, func(y int) {
+// 0.41 mm (1.70 mm at worst). Rows are shared among workers
+// goroutines (0: all cores); each output pixel depends on its block
+// alone.
+func downDepth(src []float32, sw int, dst []float32, dw, dh, workers int) {
+	forRows(dh, workers, func(y int) {
 		top := src[2*y*sw : 2*y*sw+2*dw]
 		bot := src[(2*y+1)*sw : (2*y+1)*sw+2*dw]
 		out := dst[y*dw : (y+1)*dw]

@@ -333,7 +333,7 @@ func TestDownDepthKeepsObliqueSurfaces(t *testing.T) {
 	}
 	coarse := intr.Scaled(2)
 	dst := make([]float32, coarse.Width*coarse.Height)
-	tr.downDepth(depth, intr.Width, dst, coarse.Width, coarse.Height)
+	downDepth(depth, intr.Width, dst, coarse.Width, coarse.Height, tr.opt.Workers)
 	worst, checked := 0.0, 0
 	for y := 0; y < coarse.Height; y++ {
 		for x := 0; x < coarse.Width; x++ {
@@ -355,7 +355,7 @@ func TestDownDepthKeepsObliqueSurfaces(t *testing.T) {
 	small := mesh.Intrinsics{Width: 4, Height: 2, Fx: 525, Fy: 525, Cx: 1.5, Cy: 0.5}
 	in := []float32{0.5, 0.6, 0.5, 0.501, 0.5, 0.6, 0.5, 0.501}
 	out := make([]float32, 2)
-	tr.downDepth(in, small.Width, out, 2, 1)
+	downDepth(in, small.Width, out, 2, 1, tr.opt.Workers)
 	if out[0] != 0.5 || math.Abs(float64(out[1])-0.5005) > 1e-6 {
 		t.Errorf("blocks across a 10 cm and a 1 mm step: got %v, want [0.5 0.5005]", out)
 	}
