@@ -423,8 +423,9 @@ type fuser struct {
 	weights, behind []float32
 	// the scene volume's weights and bands (FuseOptions.sceneBands)
 	sceneWeights, sceneBehind []float32
-	// graphTime is the time the pose graph took (registrations and
-	// solve), part of the "integrate" stage's
+	// graphTime is the time the pose graph took once tracking ended
+	// (the registrations left, and the solve), part of the "integrate"
+	// stage's
 	graphTime time.Duration
 }
 
@@ -879,6 +880,13 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 	// With a pose graph the part is fused once the poses are final.
 	graph := tr != nil && f.opt.Loop.NodeTurn > 0
 	var nodes []graphNode
+	var gb *graphBuilder
+	if graph {
+		// Registrations start as nodes come in, on a core tracking
+		// leaves idle part of the time.
+		gb = newGraphBuilder(ctx, f.first.Intr, f.opt.Track, f.opt.Loop, f.opt.Track.Workers, true)
+		defer gb.stop()
+	}
 	var placedIdx []int
 	var placedPose []mesh.Pose
 	var kept []*Frame // the part's region of each placed frame, or nil
@@ -958,7 +966,9 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			}
 			tr.UpdateModel(ctx, pose)
 			if isNode {
-				nodes[len(nodes)-1].model = compactModel(tr.model, pose)
+				n := &nodes[len(nodes)-1]
+				n.model = compactModel(tr.model, pose)
+				n.tdepth = gb.add(*n)
 			}
 			if colour && newKey {
 				tr.SetKeyframe(lum, fr.Depth, pose)
@@ -970,21 +980,21 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 	if err := ctx.Err(); err != nil || !graph {
 		return err
 	}
-	return f.closeLoop(ctx, nodes, placedIdx, placedPose, kept)
+	return f.closeLoop(ctx, gb, nodes, placedIdx, placedPose, kept)
 }
 
-// closeLoop corrects the tracked poses with the pose graph over nodes
-// and fuses the placed frames into the part volume at the corrected
-// poses: from kept, their part's region kept in memory, or decoded again
-// where kept holds nil.
-func (f *fuser) closeLoop(ctx context.Context, nodes []graphNode, placedIdx []int, placedPose []mesh.Pose, kept []*Frame) error {
+// closeLoop corrects the tracked poses with the pose graph over nodes,
+// whose registrations gb has been making, and fuses the placed frames
+// into the part volume at the corrected poses: from kept, their part's
+// region kept in memory, or decoded again where kept holds nil.
+func (f *fuser) closeLoop(ctx context.Context, gb *graphBuilder, nodes []graphNode, placedIdx []int, placedPose []mesh.Pose, kept []*Frame) error {
 	poses := placedPose
+	t0 := time.Now()
+	g := &poseGraph{nodes: nodes}
+	if err := g.finish(gb); err != nil {
+		return fmt.Errorf("reconstruct: %s: %w", f.sw.Dir, err)
+	}
 	if len(nodes) >= 2 {
-		t0 := time.Now()
-		g := &poseGraph{nodes: nodes}
-		if err := g.build(ctx, f.first.Intr, f.opt.Track, f.opt.Loop, f.opt.Track.Workers); err != nil {
-			return fmt.Errorf("reconstruct: %s: %w", f.sw.Dir, err)
-		}
 		newNode, dropped, err := g.optimise(f.opt.Loop)
 		if err != nil {
 			return fmt.Errorf("reconstruct: %s: %w", f.sw.Dir, err)

@@ -1,11 +1,13 @@
 package reconstruct
 
 import (
+	"cmp"
 	"context"
 	"errors"
 	"fmt"
 	"math"
 	"runtime"
+	"slices"
 	"sync"
 
 	"gonum.org/v1/gonum/mat"
@@ -331,96 +333,223 @@ type poseGraph struct {
 // its own tracker), and ties consecutive nodes by tracking's relative
 // pose. Edges come out in pair order, whatever the timing.
 func (g *poseGraph) build(ctx context.Context, intr mesh.Intrinsics, topt TrackOptions, lo LoopOptions, workers int) error {
-	type pair struct{ i, j int }
-	var pairs []pair
-	// groups[j] lists the pairs whose later node is j (their indices in
-	// pairs): one worker registers them all against j's model map and
-	// colour, set up once.
-	groups := make([][]int, len(g.nodes))
-	for i := range g.nodes {
-		for j := i + 1; j < len(g.nodes); j++ {
-			if mesh.RotationAngle(g.nodes[i].pose, g.nodes[j].pose) < lo.MaxPairTurn {
-				groups[j] = append(groups[j], len(pairs))
-				pairs = append(pairs, pair{i, j})
-			}
-		}
-	}
-	// Each node's depth is filtered once here (or was by the tracker that
-	// placed it), not again by every registration.
-	var filterTmp []float32
+	b := newGraphBuilder(ctx, intr, topt, lo, workers, false)
+	defer b.stop()
 	for k := range g.nodes {
-		n := &g.nodes[k]
-		if n.tdepth != nil {
-			continue
-		}
-		n.tdepth = n.depth
-		if topt.DepthFilter > 0 {
-			if len(filterTmp) != len(n.depth) {
-				filterTmp = make([]float32, len(n.depth))
-			}
-			n.tdepth = make([]float32, len(n.depth))
-			bilateralDepth(n.depth, n.tdepth, filterTmp, intr.Width, intr.Height, topt.DepthFilter, workers)
-		}
+		g.nodes[k].tdepth = b.add(g.nodes[k])
 	}
-	topt.DepthFilter = 0
-	topt.Workers = 1
-	got := make([]graphEdge, len(pairs))
-	ok := make([]bool, len(pairs))
-	errs := make([]error, len(pairs))
+	return g.finish(b)
+}
+
+// graphBuilder registers the pose graph's node pairs as the nodes come
+// in (add): each new node against the earlier ones within MaxPairTurn.
+// In the background it does so on one goroutine while the caller goes
+// on (a handheld sweep's tracking leaves a core idle a fifth of the
+// time), and on all workers once finish waits for the rest.
+type graphBuilder struct {
+	ctx        context.Context
+	intr       mesh.Intrinsics
+	topt       TrackOptions // for the registrations: no depth filter, one worker
+	filter     float64      // TrackOptions.DepthFilter, for nodes that come unfiltered
+	lo         LoopOptions
+	workers    int
+	background bool
+	filterTmp  []float32
+
+	nodes []*graphNode
+	jobs  []*graphJob // every node's, in node order
+
+	mu      sync.Mutex
+	cond    *sync.Cond
+	pending []*graphJob // not yet taken by a worker
+	closed  bool
+	runLen  int // once closed, how many pairs a worker takes at a time
+	started int
+	wg      sync.WaitGroup
+}
+
+// graphJob is one node's registrations: against each earlier node
+// within MaxPairTurn (rising index), with their results.
+type graphJob struct {
+	j       int
+	node    *graphNode
+	earlier []int
+	others  []*graphNode
+	edges   []graphEdge
+	ok      []bool
+	errs    []error
+}
+
+// newGraphBuilder returns a builder; with background set (and more than
+// one worker) one goroutine starts registering at once.
+func newGraphBuilder(ctx context.Context, intr mesh.Intrinsics, topt TrackOptions, lo LoopOptions, workers int, background bool) *graphBuilder {
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
-	// Runs of consecutive later nodes go to the workers, about three
-	// runs a worker: within a run the earlier nodes' frames repeat from
-	// one later node to the next, and the worker's cache holds them.
-	var runs [][2]int
-	target := max(1, len(pairs)/(3*workers))
-	cacheSize := 1
-	for j, n := 0, 0; j < len(groups); j++ {
-		cacheSize = max(cacheSize, len(groups[j]))
-		if len(runs) == 0 || n >= target {
-			runs = append(runs, [2]int{j, j})
-			n = 0
-		}
-		runs[len(runs)-1][1] = j + 1
-		n += len(groups[j])
+	b := &graphBuilder{ctx: ctx, intr: intr, topt: topt, filter: topt.DepthFilter, lo: lo, workers: workers,
+		background: background && workers > 1}
+	b.topt.DepthFilter, b.topt.Workers = 0, 1
+	b.cond = sync.NewCond(&b.mu)
+	if b.background {
+		b.start(1)
 	}
-	var wg sync.WaitGroup
-	next := make(chan [2]int)
-	for w := 0; w < workers; w++ {
-		tr, err := NewTracker(nil, intr, topt)
-		if err != nil {
-			return err
+	return b
+}
+
+// add takes the next node, complete (its model map set), and returns
+// the depth its registrations align: the node's tdepth, or its depth
+// filtered here by TrackOptions.DepthFilter when tdepth is nil. The
+// builder keeps its own copy of the node; the slices it holds must not
+// change from here on.
+func (b *graphBuilder) add(n graphNode) []float32 {
+	if n.tdepth == nil {
+		n.tdepth = n.depth
+		if b.filter > 0 {
+			if len(b.filterTmp) != len(n.depth) {
+				b.filterTmp = make([]float32, len(n.depth))
+			}
+			n.tdepth = make([]float32, len(n.depth))
+			bilateralDepth(n.depth, n.tdepth, b.filterTmp, b.intr.Width, b.intr.Height, b.filter, b.workers)
 		}
-		wg.Add(1)
+	}
+	node := &n
+	job := &graphJob{j: len(b.nodes), node: node}
+	for i, m := range b.nodes {
+		if mesh.RotationAngle(m.pose, node.pose) < b.lo.MaxPairTurn {
+			job.earlier = append(job.earlier, i)
+			job.others = append(job.others, m)
+		}
+	}
+	job.edges = make([]graphEdge, len(job.earlier))
+	job.ok = make([]bool, len(job.earlier))
+	job.errs = make([]error, len(job.earlier))
+	b.nodes = append(b.nodes, node)
+	b.jobs = append(b.jobs, job)
+	if len(job.earlier) > 0 {
+		b.mu.Lock()
+		b.pending = append(b.pending, job)
+		b.mu.Unlock()
+		b.cond.Signal()
+	}
+	return n.tdepth
+}
+
+// start starts n more workers, each with its own tracker and cache of
+// prepared frames.
+func (b *graphBuilder) start(n int) {
+	for range n {
+		b.started++
+		b.wg.Add(1)
 		go func() {
-			defer wg.Done()
-			frames := &frameCache{size: cacheSize}
-			for run := range next {
-				for j := run[0]; j < run[1]; j++ {
-					if len(groups[j]) == 0 {
+			defer b.wg.Done()
+			tr, err := NewTracker(nil, b.intr, b.topt)
+			frames := &frameCache{size: 1}
+			for {
+				run := b.take()
+				if run == nil {
+					return
+				}
+				for _, job := range run {
+					if err != nil {
+						job.errs[0] = err
 						continue
 					}
 					// the later node's model (more of the scene fused), the
 					// earlier nodes' frames
-					tr.useNode(&g.nodes[j])
-					for _, k := range groups[j] {
-						p := pairs[k]
-						e, good, err := tr.registerWith(ctx, &g.nodes[p.j], &g.nodes[p.i], p.i, frames, lo)
-						e.i, e.j = p.j, p.i
-						got[k], ok[k], errs[k] = e, good, err
+					tr.useNode(job.node)
+					frames.size = max(frames.size, len(job.earlier))
+					for k, i := range job.earlier {
+						job.edges[k], job.ok[k], job.errs[k] = tr.registerWith(b.ctx, job.node, job.others[k], i, frames, b.lo)
+						job.edges[k].i, job.edges[k].j = job.j, i
 					}
 				}
 			}
 		}()
 	}
-	for _, run := range runs {
-		next <- run
+}
+
+// take waits for pending jobs and returns the next run of them: one job
+// while nodes may still come in, about runLen pairs of consecutive
+// nodes once they are all in (their earlier nodes' frames repeat from
+// one job to the next, for the worker's cache); nil when none is left.
+func (b *graphBuilder) take() []*graphJob {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	for len(b.pending) == 0 && !b.closed {
+		b.cond.Wait()
 	}
-	close(next)
-	wg.Wait()
+	if len(b.pending) == 0 {
+		return nil
+	}
+	n, pairs := 1, len(b.pending[0].earlier)
+	if b.closed {
+		for n < len(b.pending) && pairs < b.runLen {
+			pairs += len(b.pending[n].earlier)
+			n++
+		}
+	}
+	run := slices.Clone(b.pending[:n])
+	b.pending = b.pending[n:]
+	return run
+}
+
+// close takes no more nodes, lets all the workers finish the pending
+// registrations and waits for them.
+func (b *graphBuilder) close() {
+	b.mu.Lock()
+	if !b.closed {
+		b.closed = true
+		pairs := 0
+		for _, job := range b.pending {
+			pairs += len(job.earlier)
+		}
+		b.runLen = max(1, pairs/(3*b.workers))
+	}
+	b.mu.Unlock()
+	b.cond.Broadcast()
+	if b.started < b.workers {
+		b.start(b.workers - b.started)
+	}
+	b.wg.Wait()
+}
+
+// stop drops the registrations no worker has taken and waits for the
+// ones under way: for a caller that gives up before finish.
+func (b *graphBuilder) stop() {
+	b.mu.Lock()
+	b.closed = true
+	b.pending = nil
+	b.mu.Unlock()
+	b.cond.Broadcast()
+	b.wg.Wait()
+}
+
+// finish waits for the builder's registrations and makes g's edges from
+// them, in pair order (earlier node first).
+func (g *poseGraph) finish(b *graphBuilder) error {
+	b.close()
+	type pair struct{ i, k int }
+	var order []pair // job index of the later node, place in its job
+	var errs []error
+	for _, job := range b.jobs {
+		errs = append(errs, job.errs...)
+		for k := range job.earlier {
+			order = append(order, pair{job.j, k})
+		}
+	}
 	if err := errors.Join(errs...); err != nil {
 		return err
+	}
+	slices.SortFunc(order, func(x, y pair) int {
+		if c := cmp.Compare(b.jobs[x.i].earlier[x.k], b.jobs[y.i].earlier[y.k]); c != 0 {
+			return c
+		}
+		return cmp.Compare(x.i, y.i)
+	})
+	got := make([]graphEdge, len(order))
+	ok := make([]bool, len(order))
+	for n, p := range order {
+		got[n], ok[n] = b.jobs[p.i].edges[p.k], b.jobs[p.i].ok[p.k]
 	}
 	// Tracking's relative pose between consecutive nodes is an edge too
 	// (the tracker placed the frames between them against a model that
