@@ -685,8 +685,14 @@ func (pr *projector) integrateBlock(key BlockKey, b *Block, mask *voxelMask) int
 					}
 				}
 				// Signed distance along the line of sight: the depth
-				// difference times the ray's length per unit depth.
-				sdf := (d - p.Z) * math.Sqrt(1+xn*xn+yn*yn)
+				// difference times the ray's length per unit depth, at
+				// least 1, so that a depth difference below −μ needs no
+				// square root to be skipped.
+				dz := d - p.Z
+				if dz < -mu {
+					continue
+				}
+				sdf := dz * math.Sqrt(1+xn*xn+yn*yn)
 				if sdf < -mu {
 					continue
 				}
