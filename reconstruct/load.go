@@ -316,6 +316,14 @@ func (s *Sweep) readFrame(root *os.Root, i int, buf []byte) (*Frame, *FrameError
 		}
 		// The header matches the intrinsics, which are bounded by
 		// MaxPixels, so the decoder's allocation is bounded too.
+		if d, c, ok := decodeSweepPNG(buf, img.depth, m.DepthUnit, k.Width, k.Height); ok {
+			if img.depth {
+				f.Depth = d
+			} else {
+				f.Color = c
+			}
+			continue
+		}
 		im, err := png.Decode(bytes.NewReader(buf))
 		if err != nil {
 			msg := "corrupt PNG data"
