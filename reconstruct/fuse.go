@@ -198,6 +198,7 @@ func (o FuseOptions) sceneTSDF() TSDFOptions {
 func (o FuseOptions) sceneBands(depth []float32, intr mesh.Intrinsics, w, b []float32) ([]float32, []float32) {
 	wo := o.Weights
 	wo.Region = image.Rectangle{}
+	wo.MaxDepth = o.sceneTSDF().MaxDepth
 	if !(o.TrackBehind > 0) {
 		return MeasurementWeights(depth, intr, wo, w), nil
 	}

@@ -58,6 +58,12 @@ type WeightOptions struct {
 	// trilinear samples need (FuseOptions.TrackBehind).
 	// DEFAULT: 0 (0.7)
 	BehindCos float64
+	// MaxDepth, when > 0, weighs 0 every pixel deeper than it (metres):
+	// a caller whose volume ends there (TSDFOptions.MaxDepth) never
+	// reads their weights, and on the handheld demo sweeps 7–25 % of a
+	// frame lies beyond the scene volume's 1.5 m.
+	// DEFAULT: 0 (no limit)
+	MaxDepth float64
 	// Region limits the work to the pixels inside it (a caller that
 	// knows which pixels can reach its volume, ROI.ImageRect); pixels
 	// outside weigh 0. The empty rectangle means the whole image.
@@ -165,9 +171,13 @@ func (pw *pixelWeigher) row(depth []float32, y int, dst, behind []float32) {
 	up, mid, down := depth[(y-1)*w:y*w], depth[y*w:(y+1)*w], depth[(y+1)*w:(y+2)*w]
 	ry := (float64(y) - intr.Cy) / intr.Fy
 	dx, dy := 1/intr.Fx, 1/intr.Fy // ray change per pixel
+	maxZ := math.Inf(1)
+	if opt.MaxDepth > 0 {
+		maxZ = opt.MaxDepth
+	}
 	for x := x0; x < x1; x++ {
 		z := float64(mid[x])
-		if !(z > 0) {
+		if !(z > 0 && z <= maxZ) {
 			continue
 		}
 		l, r, u, d := float64(mid[x-1]), float64(mid[x+1]), float64(up[x]), float64(down[x])

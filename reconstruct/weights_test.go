@@ -3,6 +3,7 @@ package reconstruct
 import (
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 
 	"gonum.org/v1/gonum/spatial/r3"
@@ -206,5 +207,35 @@ func TestMeasurementBandsWorkers(t *testing.T) {
 		if w1[i] != w3[i] || b1[i] != b3[i] {
 			t.Fatalf("pixel %d differs between 1 and 3 workers", i)
 		}
+	}
+}
+
+// TestMeasurementBandsMaxDepth checks WeightOptions.MaxDepth: pixels
+// deeper than it weigh 0 with no band, the others exactly as without it.
+func TestMeasurementBandsMaxDepth(t *testing.T) {
+	intr := mesh.Intrinsics{Width: 160, Height: 120, Fx: 131, Fy: 131, Cx: 79.5, Cy: 59.5}
+	depth := bumpyDepth(intr, 7)
+	o := DefaultWeightOptions()
+	w0, b0 := MeasurementBands(depth, intr, o, nil, nil, true)
+	s := slices.Clone(depth)
+	slices.Sort(s)
+	o.MaxDepth = float64(s[len(s)/2]) // half the pixels beyond
+	w, b := MeasurementBands(depth, intr, o, nil, nil, true)
+	beyond, kept := 0, 0
+	for i, z := range depth {
+		switch {
+		case float64(z) > o.MaxDepth:
+			if w[i] != 0 || b[i] != 0 {
+				t.Fatalf("pixel %d at %v m beyond %v: weight %v, band %v", i, z, o.MaxDepth, w[i], b[i])
+			}
+			beyond++
+		case w[i] != w0[i] || b[i] != b0[i]:
+			t.Fatalf("pixel %d at %v m: weight %v, band %v; without MaxDepth %v, %v", i, z, w[i], b[i], w0[i], b0[i])
+		case w[i] > 0:
+			kept++
+		}
+	}
+	if beyond == 0 || kept == 0 {
+		t.Fatalf("%d pixels beyond, %d weighed within: the test needs both", beyond, kept)
 	}
 }
