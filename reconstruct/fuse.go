@@ -786,6 +786,112 @@ func (f *fuser) plateCloud(fr *Frame) *mesh.Cloud {
 // with its reason and comes back nil; in strict mode that is an error.
 func (f *fuser) next(ctx context.Context, pf *prefetcher, idx int) (*Frame, error) {
 	fr, err := pf.take()
+	return f.usableFrame(ctx, idx, fr, err)
+}
+
+// trackAhead prepares the handheld loop's frames for tracking one or
+// two ahead of it, on a goroutine of its own (prepareAhead): each
+// frame's luminance, and its pyramid (depth filter, levels, samples) on
+// a tracker that the loop's tracker then adopts. The loop spends the
+// time on the frame it tracks, and the pyramids fill the moments a
+// core would sit idle.
+type trackAhead struct {
+	ctx  context.Context
+	out  chan aheadFrame
+	pool chan *Tracker // trackers free to prepare a frame
+	done chan struct{}
+	quit context.CancelFunc
+}
+
+// aheadFrame is one frame from prepareAhead: as the prefetcher gave it
+// (or its error), its luminance (colour term) and the tracker holding
+// its pyramid, nil where there is none (an error, no depth).
+type aheadFrame struct {
+	fr   *Frame
+	err  error
+	lum  []float32
+	prep *Tracker
+}
+
+// prepareAhead starts preparing the n frames pf gives, in order.
+func (f *fuser) prepareAhead(ctx context.Context, pf *prefetcher, n int, colour bool) (*trackAhead, error) {
+	topt := f.opt.Track
+	topt.Workers = 1
+	ctx, quit := context.WithCancel(ctx)
+	a := &trackAhead{ctx: ctx, out: make(chan aheadFrame, 1), pool: make(chan *Tracker, 2), done: make(chan struct{}), quit: quit}
+	for range cap(a.pool) {
+		t, err := NewTracker(nil, f.first.Intr, topt)
+		if err != nil {
+			quit()
+			return nil, err
+		}
+		a.pool <- t
+	}
+	go func() {
+		defer close(a.done)
+		for range n {
+			fr, err := pf.take()
+			af := aheadFrame{fr: fr, err: err}
+			if err == nil && f.lacksDepth(fr) == "" {
+				if colour {
+					af.lum = Luminance(fr.Color, nil)
+				}
+				select {
+				case af.prep = <-a.pool:
+				case <-ctx.Done():
+					return
+				}
+				af.prep.prepareColour(fr.Depth, af.lum, nil, colour)
+			}
+			select {
+			case a.out <- af:
+			case <-ctx.Done():
+				return
+			}
+		}
+	}()
+	return a, nil
+}
+
+// take returns the next frame and what was prepared of it; once the
+// context is done, its error.
+func (a *trackAhead) take() (*Frame, []float32, *Tracker, error) {
+	select {
+	case af := <-a.out:
+		return af.fr, af.lum, af.prep, af.err
+	case <-a.done:
+		// The goroutine stopped: the context is done (or every frame was
+		// taken already, which the loop never asks beyond).
+		select {
+		case af := <-a.out:
+			return af.fr, af.lum, af.prep, af.err
+		default:
+		}
+		if err := a.ctx.Err(); err != nil {
+			return nil, nil, nil, err
+		}
+		return nil, nil, nil, errors.New("reconstruct: no frame left to track")
+	}
+}
+
+// recycle gives back a tracker a frame was prepared on (or, after
+// Tracker.adopt, the one holding the loop tracker's former pyramid);
+// nil is ignored, and so is a nil trackAhead.
+func (a *trackAhead) recycle(t *Tracker) {
+	if a != nil && t != nil {
+		a.pool <- t
+	}
+}
+
+// stop ends the goroutine and waits for it.
+func (a *trackAhead) stop() {
+	a.quit()
+	<-a.done
+}
+
+// usableFrame is next for a frame already taken, or the error taking
+// it gave.
+func (f *fuser) usableFrame(ctx context.Context, idx int, fr *Frame, err error) (*Frame, error) {
 	if err != nil {
 		if ctx.Err() != nil {
 			return nil, ctx.Err()
@@ -896,18 +1002,30 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 	pose, prev := worldFromFirst, worldFromFirst
 	placed := 0
 	colour := tr != nil && f.opt.Track.ColorSigma > 0
-	var lum []float32
-	for k, idx := range usable {
-		fr, err := f.next(ctx, pf, idx)
-		if err != nil {
+	var ahead *trackAhead
+	if tr != nil {
+		var err error
+		if ahead, err = f.prepareAhead(ctx, pf, len(usable), colour); err != nil {
 			return err
 		}
-		if fr == nil {
-			continue
+		defer ahead.stop()
+	}
+	for k, idx := range usable {
+		var fr *Frame
+		var lum []float32
+		var prep *Tracker // the frame's pyramid, prepared ahead
+		var err error
+		if ahead != nil {
+			fr, lum, prep, err = ahead.take()
+		} else {
+			fr, err = pf.take()
 		}
-
-		if colour {
-			lum = Luminance(fr.Color, lum)
+		if fr, err = f.usableFrame(ctx, idx, fr, err); err != nil || fr == nil {
+			ahead.recycle(prep)
+			if err != nil {
+				return err
+			}
+			continue
 		}
 		newKey := placed == 0
 		switch {
@@ -918,14 +1036,24 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			if placed > 1 {
 				pred = pose.Mul(prev.Inv().Mul(pose)) // constant velocity
 			}
-			res, err := tr.TrackColor(ctx, fr.Depth, lum, nil, pred)
+			// The frame's pyramid as TrackColor would build it: prepared
+			// ahead, or here when the colour term's use differs.
+			c := lum != nil && tr.key != nil && tr.opt.ColorSigma > 0
+			if prep != nil && c == colour {
+				tr.adopt(prep)
+			} else {
+				c = tr.prepare(fr.Depth, lum, nil)
+			}
+			ahead.recycle(prep)
+			prep = nil
+			res, err := tr.trackPrepared(ctx, c, pred)
 			if err != nil {
 				return err
 			}
 			if res.Lost {
 				// Try again from the last placed pose before giving up.
 				if placed > 1 {
-					res, err = tr.TrackColor(ctx, fr.Depth, lum, nil, pose)
+					res, err = tr.trackPrepared(ctx, c, pose)
 					if err != nil {
 						return err
 					}
@@ -940,6 +1068,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			prev, pose = pose, res.CamToWorld
 			newKey = res.KeyOverlap < f.opt.Track.KeyframeOverlap
 		}
+		ahead.recycle(prep)
 		isNode := graph && f.opt.Loop.isNode(nodes, pose)
 		if graph {
 			if isNode {
@@ -949,7 +1078,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 					n.tdepth = tr.filteredDepth()
 				}
 				if colour {
-					n.lum = slices.Clone(lum)
+					n.lum = lum // the frame's own, from prepareAhead
 				}
 				nodes = append(nodes, n)
 			}

@@ -2,10 +2,13 @@ package reconstruct
 
 import (
 	"context"
+	"errors"
 	"math"
 	"math/rand/v2"
 	"path/filepath"
+	"runtime"
 	"testing"
+	"time"
 
 	"gonum.org/v1/gonum/diff/fd"
 	"gonum.org/v1/gonum/optimize"
@@ -547,4 +550,39 @@ func TestFrameCacheRegistrations(t *testing.T) {
 		t.Fatalf("%d pairs registered, %d cache hits: the test needs more", pairs, hits)
 	}
 	t.Logf("%d pairs, %d cache hits", pairs, hits)
+}
+
+// TestFuseHandheldCancel checks that a handheld Fuse cancelled part way
+// through tracking returns context.Canceled and leaves no goroutine
+// behind (the prefetcher, the frames prepared ahead, the pose graph's
+// background registrations).
+func TestFuseHandheldCancel(t *testing.T) {
+	if testing.Short() {
+		t.Skip("renders a sweep")
+	}
+	dir := synthSweep(t, "valve", halfSizeHandheld(40))
+	sw, err := LoadSweep(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	before := runtime.NumGoroutine()
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	fo := DefaultFuseOptions()
+	fo.Progress = func(stage string, done, total int) {
+		if stage == "fuse" && done == 12 {
+			cancel()
+		}
+	}
+	if _, err := Fuse(ctx, sw, fo); !errors.Is(err, context.Canceled) {
+		t.Fatalf("err = %v, want context.Canceled", err)
+	}
+	// Goroutines that have returned may take a moment to be gone.
+	for range 100 {
+		if runtime.NumGoroutine() <= before {
+			return
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+	t.Errorf("%d goroutines after the cancelled Fuse, %d before", runtime.NumGoroutine(), before)
 }

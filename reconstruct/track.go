@@ -404,8 +404,15 @@ func (t *Tracker) TrackColor(ctx context.Context, depth, lum []float32, mask []b
 // reports whether), the luminance pyramid, and gathers each level's
 // samples, which are all that align reads of the frame.
 func (t *Tracker) prepare(depth, lum []float32, mask []bool) bool {
-	t.buildPyramid(depth, mask)
 	colour := lum != nil && t.key != nil && t.opt.ColorSigma > 0
+	t.prepareColour(depth, lum, mask, colour)
+	return colour
+}
+
+// prepareColour is prepare with the colour term's use given: lum is
+// read only when colour is set.
+func (t *Tracker) prepareColour(depth, lum []float32, mask []bool, colour bool) {
+	t.buildPyramid(depth, mask)
 	if colour {
 		copy(t.lum[0], lum)
 		for l := 1; l < pyramidLevels; l++ {
@@ -420,7 +427,16 @@ func (t *Tracker) prepare(depth, lum []float32, mask []bool) bool {
 		}
 		t.levels[l].gather(levelStep(l), ll, t.opt.Workers)
 	}
-	return colour
+}
+
+// adopt makes the frame another tracker of the same intrinsics and
+// options prepared (prepareColour) the one t aligns next
+// (trackPrepared), as if t had prepared it: the two trackers swap their
+// pyramids, so that each keeps buffers no other holds, and other can
+// prepare the next frame.
+func (t *Tracker) adopt(other *Tracker) {
+	t.levels, other.levels = other.levels, t.levels
+	t.lum, other.lum = other.lum, t.lum
 }
 
 // trackPrepared is TrackColor for the frame prepare made ready, colour
