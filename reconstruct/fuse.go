@@ -748,7 +748,7 @@ func (f *fuser) estimateAxis(up r3.Vec) (AxisFit, error) {
 func (f *fuser) plateCloud(fr *Frame) *mesh.Cloud {
 	n := len(fr.Depth)
 	vert, norm := make([]r3.Vec, n), make([]r3.Vec, n)
-	vertexNormalMaps(fr.Depth, fr.Intr, vert, norm, 2, 1)
+	vertexNormalMaps(fr.Depth, fr.Intr, vert, norm, 2, 1, f.opt.TSDF.Workers)
 	w, h := fr.Intr.Width, fr.Intr.Height
 	near := nearEdges(fr.Depth, w, h, 0.01, 0)
 	pl := f.sup.Plane

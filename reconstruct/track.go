@@ -784,7 +784,7 @@ func (t *Tracker) buildPyramid(depth []float32, mask []bool) {
 		lv := &t.levels[l]
 		// Normals from differences spanning about 3 mm at part
 		// distances: adjacent pixels of the full image are too noisy.
-		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, max(1, 3>>l), levelStep(l))
+		lv.valid = vertexNormalMaps(lv.depth, lv.intr, lv.vert, lv.norm, max(1, 3>>l), levelStep(l), t.opt.Workers)
 		lv.equaliseNormals(levelStep(l), t.opt.Workers)
 	}
 }
@@ -997,12 +997,13 @@ func downDepth(src []float32, sw int, dst []float32, dw, dh, workers int) {
 // within 5% of their depth get a zero normal, and so do all but every
 // step-th pixel of every step-th row (tracking pairs no others: at the
 // full image's step of 2 this is a quarter of the work). It returns the
-// number of pixels with a normal.
-func vertexNormalMaps(depth []float32, intr mesh.Intrinsics, vert, norm []r3.Vec, span, step int) int {
+// number of pixels with a normal. Bands of rows are shared among
+// workers goroutines (0: all cores); each pixel depends on depth alone.
+func vertexNormalMaps(depth []float32, intr mesh.Intrinsics, vert, norm []r3.Vec, span, step, workers int) int {
 	w, h := intr.Width, intr.Height
 	const rows = 16
 	bands := (h + rows - 1) / rows
-	par.For(bands, 0, func(b int) {
+	par.For(bands, workers, func(b int) {
 		for y := b * rows; y < min(h, (b+1)*rows); y++ {
 			for x := 0; x < w; x++ {
 				i := y*w + x
@@ -1016,7 +1017,7 @@ func vertexNormalMaps(depth []float32, intr mesh.Intrinsics, vert, norm []r3.Vec
 		}
 	})
 	counts := make([]int, bands)
-	par.For(bands, 0, func(b int) {
+	par.For(bands, workers, func(b int) {
 		for y := b * rows; y < min(h, (b+1)*rows); y++ {
 			if y%step != 0 {
 				clear(norm[y*w : (y+1)*w])
