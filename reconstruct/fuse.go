@@ -474,6 +474,8 @@ type prefetcher struct {
 	slots   []chan frameOrErr
 	next    int
 	release func()
+	cancel  context.CancelFunc
+	done    chan struct{} // closed once no decoding goroutine is left
 }
 
 type frameOrErr struct {
@@ -488,7 +490,10 @@ func (f *fuser) prefetch(ctx context.Context, frames []int) *prefetcher {
 	}
 	ahead := max(1, f.opt.Prefetch)
 	sem := make(chan struct{}, ahead)
+	ctx, p.cancel = context.WithCancel(ctx)
+	p.done = make(chan struct{})
 	go func() {
+		defer close(p.done)
 		var wg sync.WaitGroup
 		for i, idx := range frames {
 			select {
@@ -512,6 +517,13 @@ func (f *fuser) prefetch(ctx context.Context, frames []int) *prefetcher {
 	// The consumer releases a semaphore slot each time it takes a frame.
 	p.release = func() { <-sem }
 	return p
+}
+
+// stop ends the prefetching (a caller that returns before taking every
+// frame) and waits for its goroutines.
+func (p *prefetcher) stop() {
+	p.cancel()
+	<-p.done
 }
 
 func (p *prefetcher) take() (*Frame, error) {
@@ -612,6 +624,7 @@ func (f *fuser) turntablePass(ctx context.Context, point, up r3.Vec, rel func(in
 		}
 	}
 	pf := f.prefetch(ctx, usable)
+	defer pf.stop()
 	var refineSum float64
 	for k, idx := range usable {
 		fr, err := f.next(ctx, pf, idx)
@@ -999,6 +1012,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 	var kept []*Frame // the part's region of each placed frame, or nil
 	var keptBytes int64
 	pf := f.prefetch(ctx, usable)
+	defer pf.stop()
 	pose, prev := worldFromFirst, worldFromFirst
 	placed := 0
 	colour := tr != nil && f.opt.Track.ColorSigma > 0
@@ -1146,6 +1160,7 @@ func (f *fuser) closeLoop(ctx context.Context, gb *graphBuilder, nodes []graphNo
 		}
 	}
 	pf := f.prefetch(ctx, again)
+	defer pf.stop()
 	for k, idx := range placedIdx {
 		fr := kept[k]
 		if fr == nil {

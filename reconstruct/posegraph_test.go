@@ -5,8 +5,10 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"os"
 	"path/filepath"
 	"runtime"
+	"strings"
 	"testing"
 	"time"
 
@@ -585,4 +587,44 @@ func TestFuseHandheldCancel(t *testing.T) {
 		time.Sleep(10 * time.Millisecond)
 	}
 	t.Errorf("%d goroutines after the cancelled Fuse, %d before", runtime.NumGoroutine(), before)
+}
+
+// TestFuseHandheldStrictStops checks that a handheld Fuse that stops on
+// a bad frame (Strict, a depth image whose pixel data is corrupt past a
+// valid header) reports that frame and leaves no goroutine behind: the
+// prefetcher's, the frames prepared ahead, the pose graph's.
+func TestFuseHandheldStrictStops(t *testing.T) {
+	if testing.Short() {
+		t.Skip("renders a sweep")
+	}
+	dir := synthSweep(t, "valve", halfSizeHandheld(40))
+	sw, err := LoadSweep(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	name := filepath.Join(dir, sw.Manifest.Frames[15].Depth)
+	data, err := os.ReadFile(name)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := len(data) / 2; i < len(data)/2+64; i++ {
+		data[i] ^= 0x5a
+	}
+	if err := os.WriteFile(name, data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	before := runtime.NumGoroutine()
+	fo := DefaultFuseOptions()
+	fo.Strict = true
+	_, err = Fuse(context.Background(), sw, fo)
+	if err == nil || !strings.Contains(err.Error(), "frame 15") {
+		t.Fatalf("err = %v, want one naming frame 15", err)
+	}
+	for range 100 {
+		if runtime.NumGoroutine() <= before {
+			return
+		}
+		time.Sleep(10 * time.Millisecond)
+	}
+	t.Errorf("%d goroutines after the stopped Fuse, %d before", runtime.NumGoroutine(), before)
 }
