@@ -486,6 +486,30 @@ func TestSchedule(t *testing.T) {
 	if got := EstimateMemory(filepath.Join(t.TempDir(), "none"), opt.Onboard, 1); got != int64(estBase+6*640*480*estViewPixel) {
 		t.Errorf("estimate without a manifest %d", got)
 	}
+	// The same sweep's manifest as a handheld rig's adds the tracking
+	// fusion's term.
+	data, err := os.ReadFile(filepath.Join(sweep, reconstruct.ManifestName))
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := reconstruct.ParseManifest(data)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m.Rig, m.Turntable = reconstruct.RigHandheld, nil
+	for i := range m.Frames {
+		m.Frames[i].Angle = nil
+	}
+	if data, err = m.Encode(); err != nil {
+		t.Fatal(err)
+	}
+	handheld := t.TempDir()
+	if err := os.WriteFile(filepath.Join(handheld, reconstruct.ManifestName), data, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if got := EstimateMemory(handheld, opt.Onboard, 1); got != est+640*480*estHandheldPixel {
+		t.Errorf("handheld estimate %d, want %d", got, est+640*480*estHandheldPixel)
+	}
 
 	names := []string{"p1", "p2", "crash", "p3"}
 	var parts []Part

@@ -35,46 +35,58 @@ const (
 	// estWorker is per goroutine working inside the part: render and
 	// voting scratch, and two decoded frames in flight in the fusion.
 	estWorker = 40 << 20
+	// estHandheldPixel is per pixel of a handheld sweep's images, for
+	// its fusion, which tracks the camera: the 120-frame 640×480
+	// handheld bench sweep's Fuse peaked at 660 MiB of Go heap
+	// (BenchmarkFuseHandheld, 2026-12-02; 2 253 bytes a pixel): the
+	// frames' regions kept for the pose graph (up to
+	// FuseOptions.KeepBytes), the graph's nodes, the scene volume and
+	// the trackers' pyramids.
+	estHandheldPixel = 2300
 )
 
 // EstimateMemory estimates the peak memory, in bytes, of onboarding
 // the sweep in sweepDir with opt and workers goroutines inside the part
 // (0: 1). It reads only the sweep's manifest (its image size); when that
 // cannot be read, the part will fail early and the estimate is the
-// fixed part alone. The estimate does not foresee a model much larger
-// than the part (a fusion that kept the support): that part takes more.
+// fixed part alone; a handheld sweep adds its fusion's (estHandheldPixel).
+// The estimate does not foresee a model much larger than the part (a
+// fusion that kept the support): that part takes more.
 func EstimateMemory(sweepDir string, opt onboard.Options, workers int) int64 {
 	workers = max(workers, 1)
 	est := int64(estBase)
 	sc := opt.Check.Scene.Intrinsics
 	est += int64(max(opt.Check.Views, 0)) * int64(sc.Width) * int64(sc.Height) * estViewPixel
-	px, err := sweepPixels(sweepDir)
+	px, rig, err := sweepPixels(sweepDir)
 	if err != nil {
 		return est
 	}
 	est += int64(max(opt.RealFrames, 0)) * px * estFramePixel
 	est += int64(workers) * (estWorker + 2*px*estFramePixel)
+	if rig == reconstruct.RigHandheld {
+		est += px * estHandheldPixel
+	}
 	return est
 }
 
 // sweepPixels reads the sweep's manifest and returns its image size in
-// pixels.
-func sweepPixels(dir string) (int64, error) {
+// pixels and its rig.
+func sweepPixels(dir string) (int64, reconstruct.Rig, error) {
 	f, err := os.Open(filepath.Join(dir, reconstruct.ManifestName))
 	if err != nil {
-		return 0, err
+		return 0, "", err
 	}
 	defer f.Close()
 	data, err := io.ReadAll(io.LimitReader(f, reconstruct.MaxManifestBytes+1))
 	if err != nil {
-		return 0, err
+		return 0, "", err
 	}
 	if len(data) > reconstruct.MaxManifestBytes {
-		return 0, fmt.Errorf("batch: %s is too large", reconstruct.ManifestName)
+		return 0, "", fmt.Errorf("batch: %s is too large", reconstruct.ManifestName)
 	}
 	m, err := reconstruct.ParseManifest(data)
 	if err != nil {
-		return 0, err
+		return 0, "", err
 	}
-	return int64(m.Intrinsics.Width) * int64(m.Intrinsics.Height), nil
+	return int64(m.Intrinsics.Width) * int64(m.Intrinsics.Height), m.Rig, nil
 }
