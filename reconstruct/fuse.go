@@ -1045,6 +1045,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			continue
 		}
 		newKey := placed == 0
+		tracked, trackedColour := false, false // the frame's pyramid is tr's
 		switch {
 		case given:
 			pose = fr.CamToWorld
@@ -1084,6 +1085,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			}
 			prev, pose = pose, res.CamToWorld
 			newKey = res.KeyOverlap < f.opt.Track.KeyframeOverlap
+			tracked, trackedColour = true, c
 		}
 		ahead.recycle(prep)
 		isNode := graph && f.opt.Loop.isNode(nodes, pose)
@@ -1096,6 +1098,10 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 				}
 				if colour {
 					n.lum = lum // the frame's own, from prepareAhead
+				}
+				if tracked && n.tdepth != nil && (!trackedColour || n.lum != nil) {
+					// and prepared it as the registrations will
+					n.prep = tr.snapshotPrepared(len(nodes), trackedColour)
 				}
 				nodes = append(nodes, n)
 			}

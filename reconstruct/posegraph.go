@@ -139,6 +139,9 @@ type graphNode struct {
 	// model is the tracker's model map right after the node's frame was
 	// fused (raycast from pose)
 	model *nodeModel
+	// prep is the node's frame as tracking prepared it (samples and
+	// bands of tdepth and lum), or nil; graphBuilder.add takes it
+	prep *preparedFrame
 }
 
 // isNode reports whether a frame placed at pose is far enough from the
@@ -237,14 +240,15 @@ func (t *Tracker) useNode(a *graphNode) {
 // from b's current pose, and returns the edge a→b, or false when the
 // registration is refused (lost, too few pairs, or too far from the
 // start). frames holds the frames the tracker prepared lately; bi is
-// b's index among the nodes.
-func (t *Tracker) registerWith(ctx context.Context, a, b *graphNode, bi int, frames *frameCache, lo LoopOptions) (graphEdge, bool, error) {
+// b's index among the nodes; handed is b's frame as tracking prepared
+// it, or nil.
+func (t *Tracker) registerWith(ctx context.Context, a, b *graphNode, bi int, frames *frameCache, handed *preparedFrame, lo LoopOptions) (graphEdge, bool, error) {
 	colour := t.opt.ColorSigma > 0 && a.lum != nil && b.lum != nil
 	lum := b.lum
 	if !colour {
 		lum = nil
 	}
-	res, err := t.trackPrepared(ctx, frames.use(t, bi, b.tdepth, lum), b.pose)
+	res, err := t.trackPrepared(ctx, frames.use(t, bi, b.tdepth, lum, handed), b.pose)
 	if err != nil || res.Lost || res.Pairs < lo.MinPairs {
 		return graphEdge{}, false, err
 	}
@@ -267,6 +271,26 @@ type preparedFrame struct {
 	colour  bool
 	samples [pyramidLevels][]trackSample
 	bands   [pyramidLevels][]int
+	// handed: tracking prepared the frame and handed it over
+	// (snapshotPrepared); caches may share it, so none prepares
+	// another frame into its memory
+	handed bool
+}
+
+// snapshotPrepared copies the frame t's last prepare made ready, as node
+// k's, for the pose graph's registrations. Tracking prepares a node's
+// frame as a registration would (Tracker.prepare: the same depth once
+// filtered, the same luminance, no mask), and alignment only reads
+// samples and bands, so the copy is what a registration would prepare,
+// to the bit (TestHandedFrames), for a copy of 7–8 MB instead of a
+// pyramid's build.
+func (t *Tracker) snapshotPrepared(k int, colour bool) *preparedFrame {
+	p := &preparedFrame{node: k, colour: colour, handed: true}
+	for l := range t.levels {
+		p.samples[l] = slices.Clone(t.levels[l].samples)
+		p.bands[l] = slices.Clone(t.levels[l].bands)
+	}
+	return p
 }
 
 // frameCache keeps the frames one tracker prepared for its last
@@ -279,12 +303,13 @@ type frameCache struct {
 }
 
 // use makes node k's frame (its depth for tracking, and its luminance
-// or nil) the frame t aligns next, from the cache or prepared anew in
-// place of the cached frame of the lowest node index (registrations
-// come in rising node order), and reports whether the colour term
-// applies, as Tracker.prepare does. The tracker's levels then share
-// their samples with the cache: only use may prepare frames on t.
-func (c *frameCache) use(t *Tracker, k int, depth, lum []float32) bool {
+// or nil) the frame t aligns next, from the cache, from handed (the
+// frame as tracking prepared it, or nil), or prepared anew, in place of
+// the cached frame of the lowest node index (registrations come in
+// rising node order), and reports whether the colour term applies, as
+// Tracker.prepare does. The tracker's levels then share their samples
+// with the cache: only use may prepare frames on t.
+func (c *frameCache) use(t *Tracker, k int, depth, lum []float32, handed *preparedFrame) bool {
 	colour := lum != nil && t.key != nil && t.opt.ColorSigma > 0
 	var p *preparedFrame
 	for _, q := range c.frames {
@@ -295,18 +320,29 @@ func (c *frameCache) use(t *Tracker, k int, depth, lum []float32) bool {
 	}
 	fresh := p == nil
 	if fresh {
-		if len(c.frames) < c.size {
-			p = &preparedFrame{}
-			c.frames = append(c.frames, p)
+		slot := len(c.frames)
+		if slot < c.size {
+			c.frames = append(c.frames, nil)
 		} else {
-			p = c.frames[0]
-			for _, q := range c.frames[1:] {
-				if q.node < p.node {
-					p = q
+			slot = 0
+			for i, q := range c.frames {
+				if q.node < c.frames[slot].node {
+					slot = i
 				}
 			}
 		}
-		p.node, p.colour = k, colour
+		switch {
+		case handed != nil && handed.node == k && handed.colour == colour:
+			p, fresh = handed, false
+		case c.frames[slot] == nil || c.frames[slot].handed:
+			p = &preparedFrame{} // a handed frame's memory is shared
+		default:
+			p = c.frames[slot]
+		}
+		c.frames[slot] = p
+		if fresh {
+			p.node, p.colour = k, colour
+		}
 	}
 	// The levels take the frame's buffers: to fill, when fresh (reusing
 	// the memory of the frame it replaces), or as they are.
@@ -358,6 +394,9 @@ type graphBuilder struct {
 
 	nodes []*graphNode
 	jobs  []*graphJob // every node's, in node order
+	// handed holds the frames tracking prepared, by node, for the last
+	// keepHanded nodes (nil before; under mu)
+	handed []*preparedFrame
 
 	mu      sync.Mutex
 	cond    *sync.Cond
@@ -414,6 +453,13 @@ func (b *graphBuilder) add(n graphNode) []float32 {
 	}
 	node := &n
 	job := &graphJob{j: len(b.nodes), node: node}
+	b.mu.Lock()
+	b.handed = append(b.handed, n.prep)
+	if old := len(b.handed) - 1 - keepHanded; old >= 0 {
+		b.handed[old] = nil
+	}
+	b.mu.Unlock()
+	node.prep = nil
 	for i, m := range b.nodes {
 		if mesh.RotationAngle(m.pose, node.pose) < b.lo.MaxPairTurn {
 			job.earlier = append(job.earlier, i)
@@ -432,6 +478,22 @@ func (b *graphBuilder) add(n graphNode) []float32 {
 		b.cond.Signal()
 	}
 	return n.tdepth
+}
+
+// keepHanded is how many of the latest nodes' handed frames a builder
+// keeps: a node's registrations are mostly against the few nodes before
+// it (MaxPairTurn 75° holds five nodes 15° apart). Older frames are
+// prepared anew if a registration needs them, a loop's closure say.
+const keepHanded = 6
+
+// handedFrame returns node i's frame as tracking prepared it, or nil.
+func (b *graphBuilder) handedFrame(i int) *preparedFrame {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	if i < len(b.handed) {
+		return b.handed[i]
+	}
+	return nil
 }
 
 // start starts n more workers, each with its own tracker and cache of
@@ -459,7 +521,7 @@ func (b *graphBuilder) start(n int) {
 					tr.useNode(job.node)
 					frames.size = max(frames.size, len(job.earlier))
 					for k, i := range job.earlier {
-						job.edges[k], job.ok[k], job.errs[k] = tr.registerWith(b.ctx, job.node, job.others[k], i, frames, b.lo)
+						job.edges[k], job.ok[k], job.errs[k] = tr.registerWith(b.ctx, job.node, job.others[k], i, frames, b.handedFrame(i), b.lo)
 						job.edges[k].i, job.edges[k].j = job.j, i
 					}
 				}

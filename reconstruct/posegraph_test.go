@@ -8,6 +8,7 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
+	"slices"
 	"strings"
 	"testing"
 	"time"
@@ -520,7 +521,7 @@ func TestFrameCacheRegistrations(t *testing.T) {
 			for _, p := range frames.frames {
 				inCache = inCache || p.node == i
 			}
-			got, gotOK, err := cached.registerWith(ctx, a, b, i, frames, lo)
+			got, gotOK, err := cached.registerWith(ctx, a, b, i, frames, nil, lo)
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -552,6 +553,115 @@ func TestFrameCacheRegistrations(t *testing.T) {
 		t.Fatalf("%d pairs registered, %d cache hits: the test needs more", pairs, hits)
 	}
 	t.Logf("%d pairs, %d cache hits", pairs, hits)
+}
+
+// TestHandedFrames checks that a node's frame as tracking prepares it
+// (a tracker with the depth filter, one worker, as Fuse prepares frames
+// ahead), copied by snapshotPrepared, is what a registration prepares
+// anew from the node's filtered depth and luminance (a tracker without
+// the filter, whose keyframe is set), to the bit, and that a
+// registration through the handed frame gives the same edge.
+func TestHandedFrames(t *testing.T) {
+	if testing.Short() {
+		t.Skip("renders a sweep")
+	}
+	dir := synthSweep(t, "nut", halfSizeHandheld(12))
+	sw, err := LoadSweep(dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tp, err := ReadTruthPoses(filepath.Join(dir, TruthDir, TruthPosesName))
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx := context.Background()
+	opt := DefaultFuseOptions()
+	scene, err := NewVolume(opt.sceneTSDF())
+	if err != nil {
+		t.Fatal(err)
+	}
+	f := &fuser{opt: opt}
+	var intr mesh.Intrinsics
+	var model *Tracker
+	var nodes []graphNode
+	var snaps []*preparedFrame
+	for _, idx := range sw.Usable() {
+		fr, err := sw.Frame(idx)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if model == nil {
+			intr = fr.Intr
+			if model, err = NewTracker(scene, intr, opt.Track); err != nil {
+				t.Fatal(err)
+			}
+		}
+		pose := tp.CamToWorld[idx]
+		if err := f.integrateScene(ctx, scene, fr, pose); err != nil {
+			t.Fatal(err)
+		}
+		if idx%2 != 0 {
+			continue
+		}
+		model.UpdateModel(ctx, pose)
+		topt := opt.Track
+		topt.Workers = 1
+		ahead, err := NewTracker(nil, intr, topt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		lum := Luminance(fr.Color, nil)
+		ahead.prepareColour(fr.Depth, lum, nil, true)
+		nodes = append(nodes, graphNode{placed: idx, pose: pose, depth: fr.Depth, tdepth: ahead.filteredDepth(),
+			lum: lum, model: compactModel(model.model, pose)})
+		snaps = append(snaps, ahead.snapshotPrepared(len(nodes)-1, true))
+	}
+	topt := opt.Track
+	topt.DepthFilter = 0
+	reg, err := NewTracker(nil, intr, topt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	viaHanded, err := NewTracker(nil, intr, topt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lo := opt.Loop
+	lo.MinPairs = 500 // a quarter of the full-size images' 2000
+	pairs := 0
+	for j := 1; j < len(nodes); j++ {
+		a, b := &nodes[j], &nodes[j-1]
+		reg.useNode(a)
+		viaHanded.useNode(a)
+		fresh := &frameCache{size: 1}
+		if !fresh.use(reg, j-1, b.tdepth, b.lum, nil) {
+			t.Fatal("the registration's frame has no colour term")
+		}
+		p := fresh.frames[0]
+		for l := range p.samples {
+			if !slices.Equal(p.samples[l], snaps[j-1].samples[l]) || !slices.Equal(p.bands[l], snaps[j-1].bands[l]) {
+				t.Fatalf("node %d, level %d: the handed frame differs from the one prepared anew (%d and %d samples)",
+					j-1, l, len(snaps[j-1].samples[l]), len(p.samples[l]))
+			}
+		}
+		got, gotOK, err := viaHanded.registerWith(ctx, a, b, j-1, &frameCache{size: 1}, snaps[j-1], lo)
+		if err != nil {
+			t.Fatal(err)
+		}
+		want, wantOK, err := reg.registerWith(ctx, a, b, j-1, &frameCache{size: 1}, nil, lo)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if gotOK != wantOK || got.z != want.z || got.info != want.info {
+			t.Fatalf("pair %d–%d: edge %v (%v) through the handed frame, %v (%v) anew", j-1, j, got.z, gotOK, want.z, wantOK)
+		}
+		if gotOK {
+			pairs++
+		}
+	}
+	if pairs < 3 {
+		t.Fatalf("%d pairs registered: the test needs more", pairs)
+	}
 }
 
 // TestFuseHandheldCancel checks that a handheld Fuse cancelled part way
