@@ -493,3 +493,100 @@ func TestBilateralDepthPlain(t *testing.T) {
 		}
 	}
 }
+
+// TestVertexNormalMaps checks the normals of a plane seen at an angle
+// against the plane's own normal (analytic geometry: a point-normal
+// plane n·p = d, cut by each pixel's ray), and the whole maps, holes
+// and a depth jump included, against the estimator written out pixel
+// by pixel with no stepping shortcut, to the bit, at the steps and
+// spans of the tracker's levels.
+func TestVertexNormalMaps(t *testing.T) {
+	intr := mesh.Intrinsics{Width: 83, Height: 61, Fx: 70, Fy: 70, Cx: 41.5, Cy: 30}
+	n := r3.Unit(r3.Vec{X: 0.03, Y: -0.1, Z: -1}) // faces the camera
+	d := n.Z * 0.5                                // through (0, 0, 0.5)
+	depth := make([]float32, intr.Width*intr.Height)
+	r := rand.New(rand.NewPCG(3, 4))
+	for y := 0; y < intr.Height; y++ {
+		for x := 0; x < intr.Width; x++ {
+			ray := r3.Vec{X: (float64(x) - intr.Cx) / intr.Fx, Y: (float64(y) - intr.Cy) / intr.Fy, Z: 1}
+			depth[y*intr.Width+x] = float32(d / r3.Dot(n, ray))
+		}
+	}
+	planeOnly := make([]float32, len(depth))
+	copy(planeOnly, depth)
+	for i := range depth {
+		if r.Float64() < 0.03 {
+			depth[i] = 0 // dropouts
+		}
+		if i/intr.Width > 40 {
+			depth[i] *= 1.2 // a depth jump past row 40
+		}
+	}
+	plain := func(depth []float32, span, step int) ([]r3.Vec, int) {
+		w, h := intr.Width, intr.Height
+		vert := make([]r3.Vec, w*h)
+		norm := make([]r3.Vec, w*h)
+		for i, z := range depth {
+			if z > 0 {
+				vert[i] = intr.BackProject(float64(i%w), float64(i/w), float64(z))
+			}
+		}
+		valid := 0
+		for y := 0; y < h; y++ {
+			for x := 0; x < w; x++ {
+				i := y*w + x
+				z := depth[i]
+				if x%step != 0 || y%step != 0 || z <= 0 || x < span || y < span || x >= w-span || y >= h-span {
+					continue
+				}
+				l, r, u, dn := depth[i-span], depth[i+span], depth[i-span*w], depth[i+span*w]
+				jump := 0.05 * z
+				if l <= 0 || r <= 0 || u <= 0 || dn <= 0 || abs32(l-z) > jump || abs32(r-z) > jump || abs32(u-z) > jump || abs32(dn-z) > jump {
+					continue
+				}
+				c := r3.Cross(r3.Sub(vert[i+span], vert[i-span]), r3.Sub(vert[i+span*w], vert[i-span*w]))
+				nn := r3.Dot(c, c)
+				if nn == 0 {
+					continue
+				}
+				s := 1 / math.Sqrt(nn)
+				if r3.Dot(c, vert[i]) > 0 {
+					s = -s
+				}
+				norm[i] = r3.Scale(s, c)
+				valid++
+			}
+		}
+		return norm, valid
+	}
+	for _, sp := range [][2]int{{3, 2}, {1, 1}, {1, 2}, {2, 3}} {
+		span, step := sp[0], sp[1]
+		vert := make([]r3.Vec, len(depth))
+		norm := make([]r3.Vec, len(depth))
+		for i := range norm {
+			norm[i] = r3.Vec{X: 9} // stale values must go
+		}
+		valid := vertexNormalMaps(depth, intr, vert, norm, span, step, 2)
+		want, wantValid := plain(depth, span, step)
+		if valid != wantValid {
+			t.Errorf("span %d step %d: %d normals, want %d", span, step, valid, wantValid)
+		}
+		for i := range want {
+			if norm[i] != want[i] {
+				t.Fatalf("span %d step %d: pixel %d: normal %v, want %v", span, step, i, norm[i], want[i])
+			}
+		}
+		// The plane alone: every normal is the plane's, to the float32
+		// rounding of depth (relative 6e-8, over differences spanning
+		// 2·span pixels: well under 1e-4).
+		valid = vertexNormalMaps(planeOnly, intr, vert, norm, span, step, 1)
+		if valid == 0 {
+			t.Fatalf("span %d step %d: no normal on the plane", span, step)
+		}
+		for i, m := range norm {
+			if m != (r3.Vec{}) && r3.Norm(r3.Sub(m, n)) > 1e-4 {
+				t.Fatalf("span %d step %d: pixel %d: normal %v, the plane's %v", span, step, i, m, n)
+			}
+		}
+	}
+}
