@@ -1101,7 +1101,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 				}
 				if tracked && n.tdepth != nil && (!trackedColour || n.lum != nil) {
 					// and prepared it as the registrations will
-					n.prep = tr.snapshotPrepared(len(nodes), trackedColour)
+					n.prep = tr.snapshotPrepared(len(nodes), trackedColour, gb.spareFrame())
 				}
 				nodes = append(nodes, n)
 			}

@@ -240,15 +240,14 @@ func (t *Tracker) useNode(a *graphNode) {
 // from b's current pose, and returns the edge a→b, or false when the
 // registration is refused (lost, too few pairs, or too far from the
 // start). frames holds the frames the tracker prepared lately; bi is
-// b's index among the nodes; handed is b's frame as tracking prepared
-// it, or nil.
-func (t *Tracker) registerWith(ctx context.Context, a, b *graphNode, bi int, frames *frameCache, handed *preparedFrame, lo LoopOptions) (graphEdge, bool, error) {
+// b's index among the nodes.
+func (t *Tracker) registerWith(ctx context.Context, a, b *graphNode, bi int, frames *frameCache, lo LoopOptions) (graphEdge, bool, error) {
 	colour := t.opt.ColorSigma > 0 && a.lum != nil && b.lum != nil
 	lum := b.lum
 	if !colour {
 		lum = nil
 	}
-	res, err := t.trackPrepared(ctx, frames.use(t, bi, b.tdepth, lum, handed), b.pose)
+	res, err := t.trackPrepared(ctx, frames.use(t, bi, b.tdepth, lum), b.pose)
 	if err != nil || res.Lost || res.Pairs < lo.MinPairs {
 		return graphEdge{}, false, err
 	}
@@ -271,10 +270,6 @@ type preparedFrame struct {
 	colour  bool
 	samples [pyramidLevels][]trackSample
 	bands   [pyramidLevels][]int
-	// handed: tracking prepared the frame and handed it over
-	// (snapshotPrepared); caches may share it, so none prepares
-	// another frame into its memory
-	handed bool
 }
 
 // snapshotPrepared copies the frame t's last prepare made ready, as node
@@ -283,12 +278,17 @@ type preparedFrame struct {
 // filtered, the same luminance, no mask), and alignment only reads
 // samples and bands, so the copy is what a registration would prepare,
 // to the bit (TestHandedFrames), for a copy of 7–8 MB instead of a
-// pyramid's build.
-func (t *Tracker) snapshotPrepared(k int, colour bool) *preparedFrame {
-	p := &preparedFrame{node: k, colour: colour, handed: true}
+// pyramid's build. The copy goes into into's memory when into is not
+// nil (a frame a cache let go: graphBuilder.spareFrame).
+func (t *Tracker) snapshotPrepared(k int, colour bool, into *preparedFrame) *preparedFrame {
+	p := into
+	if p == nil {
+		p = &preparedFrame{}
+	}
+	p.node, p.colour = k, colour
 	for l := range t.levels {
-		p.samples[l] = slices.Clone(t.levels[l].samples)
-		p.bands[l] = slices.Clone(t.levels[l].bands)
+		p.samples[l] = append(p.samples[l][:0], t.levels[l].samples...)
+		p.bands[l] = append(p.bands[l][:0], t.levels[l].bands...)
 	}
 	return p
 }
@@ -300,16 +300,21 @@ func (t *Tracker) snapshotPrepared(k int, colour bool) *preparedFrame {
 type frameCache struct {
 	frames []*preparedFrame
 	size   int
+	// handed, when set, gives node k's frame as tracking prepared it,
+	// or nil, and gives it up: the cache owns what it returns. spare,
+	// when set, takes the frames the cache lets go of for their memory.
+	handed func(k int) *preparedFrame
+	spare  func(*preparedFrame)
 }
 
 // use makes node k's frame (its depth for tracking, and its luminance
-// or nil) the frame t aligns next, from the cache, from handed (the
-// frame as tracking prepared it, or nil), or prepared anew, in place of
-// the cached frame of the lowest node index (registrations come in
-// rising node order), and reports whether the colour term applies, as
-// Tracker.prepare does. The tracker's levels then share their samples
-// with the cache: only use may prepare frames on t.
-func (c *frameCache) use(t *Tracker, k int, depth, lum []float32, handed *preparedFrame) bool {
+// or nil) the frame t aligns next: from the cache, or else handed over,
+// or else prepared anew, in place of the cached frame of the lowest
+// node index (registrations come in rising node order); it reports
+// whether the colour term applies, as Tracker.prepare does. The
+// tracker's levels then share their samples with the cache: only use
+// may prepare frames on t.
+func (c *frameCache) use(t *Tracker, k int, depth, lum []float32) bool {
 	colour := lum != nil && t.key != nil && t.opt.ColorSigma > 0
 	var p *preparedFrame
 	for _, q := range c.frames {
@@ -331,18 +336,25 @@ func (c *frameCache) use(t *Tracker, k int, depth, lum []float32, handed *prepar
 				}
 			}
 		}
+		if c.handed != nil {
+			if h := c.handed(k); h != nil && h.node == k && h.colour == colour {
+				p, fresh = h, false
+			} else if h != nil && c.spare != nil {
+				c.spare(h)
+			}
+		}
 		switch {
-		case handed != nil && handed.node == k && handed.colour == colour:
-			p, fresh = handed, false
-		case c.frames[slot] == nil || c.frames[slot].handed:
-			p = &preparedFrame{} // a handed frame's memory is shared
+		case p != nil:
+			if victim := c.frames[slot]; victim != nil && c.spare != nil {
+				c.spare(victim)
+			}
+		case c.frames[slot] != nil:
+			p = c.frames[slot] // prepared anew in the victim's memory
 		default:
-			p = c.frames[slot]
+			p = &preparedFrame{}
 		}
 		c.frames[slot] = p
-		if fresh {
-			p.node, p.colour = k, colour
-		}
+		p.node, p.colour = k, colour
 	}
 	// The levels take the frame's buffers: to fill, when fresh (reusing
 	// the memory of the frame it replaces), or as they are.
@@ -395,8 +407,10 @@ type graphBuilder struct {
 	nodes []*graphNode
 	jobs  []*graphJob // every node's, in node order
 	// handed holds the frames tracking prepared, by node, for the last
-	// keepHanded nodes (nil before; under mu)
+	// keepHanded nodes until a worker's cache takes them (under mu);
+	// spare holds frames caches let go of, for their memory
 	handed []*preparedFrame
+	spare  chan *preparedFrame
 
 	mu      sync.Mutex
 	cond    *sync.Cond
@@ -429,6 +443,7 @@ func newGraphBuilder(ctx context.Context, intr mesh.Intrinsics, topt TrackOption
 		background: background && workers > 1}
 	b.topt.DepthFilter, b.topt.Workers = 0, 1
 	b.cond = sync.NewCond(&b.mu)
+	b.spare = make(chan *preparedFrame, 1)
 	if b.background {
 		b.start(1)
 	}
@@ -455,7 +470,8 @@ func (b *graphBuilder) add(n graphNode) []float32 {
 	job := &graphJob{j: len(b.nodes), node: node}
 	b.mu.Lock()
 	b.handed = append(b.handed, n.prep)
-	if old := len(b.handed) - 1 - keepHanded; old >= 0 {
+	if old := len(b.handed) - 1 - keepHanded; old >= 0 && b.handed[old] != nil {
+		b.recycle(b.handed[old])
 		b.handed[old] = nil
 	}
 	b.mu.Unlock()
@@ -486,14 +502,36 @@ func (b *graphBuilder) add(n graphNode) []float32 {
 // prepared anew if a registration needs them, a loop's closure say.
 const keepHanded = 6
 
-// handedFrame returns node i's frame as tracking prepared it, or nil.
-func (b *graphBuilder) handedFrame(i int) *preparedFrame {
+// takeHanded returns node i's frame as tracking prepared it, or nil,
+// and gives it up to the caller.
+func (b *graphBuilder) takeHanded(i int) *preparedFrame {
 	b.mu.Lock()
 	defer b.mu.Unlock()
 	if i < len(b.handed) {
-		return b.handed[i]
+		p := b.handed[i]
+		b.handed[i] = nil
+		return p
 	}
 	return nil
+}
+
+// recycle keeps a frame no one holds any longer for spareFrame, if
+// there is room.
+func (b *graphBuilder) recycle(p *preparedFrame) {
+	select {
+	case b.spare <- p:
+	default:
+	}
+}
+
+// spareFrame returns a frame recycled, for its memory, or nil.
+func (b *graphBuilder) spareFrame() *preparedFrame {
+	select {
+	case p := <-b.spare:
+		return p
+	default:
+		return nil
+	}
 }
 
 // start starts n more workers, each with its own tracker and cache of
@@ -505,7 +543,7 @@ func (b *graphBuilder) start(n int) {
 		go func() {
 			defer b.wg.Done()
 			tr, err := NewTracker(nil, b.intr, b.topt)
-			frames := &frameCache{size: 1}
+			frames := &frameCache{size: 1, handed: b.takeHanded, spare: b.recycle}
 			for {
 				run := b.take()
 				if run == nil {
@@ -521,7 +559,7 @@ func (b *graphBuilder) start(n int) {
 					tr.useNode(job.node)
 					frames.size = max(frames.size, len(job.earlier))
 					for k, i := range job.earlier {
-						job.edges[k], job.ok[k], job.errs[k] = tr.registerWith(b.ctx, job.node, job.others[k], i, frames, b.handedFrame(i), b.lo)
+						job.edges[k], job.ok[k], job.errs[k] = tr.registerWith(b.ctx, job.node, job.others[k], i, frames, b.lo)
 						job.edges[k].i, job.edges[k].j = job.j, i
 					}
 				}

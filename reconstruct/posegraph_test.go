@@ -521,7 +521,7 @@ func TestFrameCacheRegistrations(t *testing.T) {
 			for _, p := range frames.frames {
 				inCache = inCache || p.node == i
 			}
-			got, gotOK, err := cached.registerWith(ctx, a, b, i, frames, nil, lo)
+			got, gotOK, err := cached.registerWith(ctx, a, b, i, frames, lo)
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -614,7 +614,14 @@ func TestHandedFrames(t *testing.T) {
 		ahead.prepareColour(fr.Depth, lum, nil, true)
 		nodes = append(nodes, graphNode{placed: idx, pose: pose, depth: fr.Depth, tdepth: ahead.filteredDepth(),
 			lum: lum, model: compactModel(model.model, pose)})
-		snaps = append(snaps, ahead.snapshotPrepared(len(nodes)-1, true))
+		snaps = append(snaps, ahead.snapshotPrepared(len(nodes)-1, true, nil))
+		// A copy into another frame's memory is the same copy.
+		again := ahead.snapshotPrepared(len(nodes)-1, true, snapshotCopy(snaps[0]))
+		for l := range again.samples {
+			if !slices.Equal(again.samples[l], snaps[len(snaps)-1].samples[l]) || !slices.Equal(again.bands[l], snaps[len(snaps)-1].bands[l]) {
+				t.Fatalf("node %d, level %d: the copy into a spare frame differs", len(nodes)-1, l)
+			}
+		}
 	}
 	topt := opt.Track
 	topt.DepthFilter = 0
@@ -634,7 +641,7 @@ func TestHandedFrames(t *testing.T) {
 		reg.useNode(a)
 		viaHanded.useNode(a)
 		fresh := &frameCache{size: 1}
-		if !fresh.use(reg, j-1, b.tdepth, b.lum, nil) {
+		if !fresh.use(reg, j-1, b.tdepth, b.lum) {
 			t.Fatal("the registration's frame has no colour term")
 		}
 		p := fresh.frames[0]
@@ -644,11 +651,23 @@ func TestHandedFrames(t *testing.T) {
 					j-1, l, len(snaps[j-1].samples[l]), len(p.samples[l]))
 			}
 		}
-		got, gotOK, err := viaHanded.registerWith(ctx, a, b, j-1, &frameCache{size: 1}, snaps[j-1], lo)
+		// The handed frame goes to the cache, which gives up the frame
+		// it held (a copy of the one before).
+		var spared []*preparedFrame
+		handing := &frameCache{size: 1,
+			handed: func(k int) *preparedFrame { return snaps[k] },
+			spare:  func(p *preparedFrame) { spared = append(spared, p) }}
+		if j > 1 {
+			handing.frames = []*preparedFrame{snapshotCopy(snaps[j-2])}
+		}
+		got, gotOK, err := viaHanded.registerWith(ctx, a, b, j-1, handing, lo)
 		if err != nil {
 			t.Fatal(err)
 		}
-		want, wantOK, err := reg.registerWith(ctx, a, b, j-1, &frameCache{size: 1}, nil, lo)
+		if len(handing.frames) != 1 || handing.frames[0] != snaps[j-1] || (j > 1) != (len(spared) == 1) {
+			t.Fatalf("pair %d–%d: the cache holds %d frames, %d spared", j-1, j, len(handing.frames), len(spared))
+		}
+		want, wantOK, err := reg.registerWith(ctx, a, b, j-1, &frameCache{size: 1}, lo)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -662,6 +681,16 @@ func TestHandedFrames(t *testing.T) {
 	if pairs < 3 {
 		t.Fatalf("%d pairs registered: the test needs more", pairs)
 	}
+}
+
+// snapshotCopy copies a prepared frame.
+func snapshotCopy(p *preparedFrame) *preparedFrame {
+	q := &preparedFrame{node: p.node, colour: p.colour}
+	for l := range p.samples {
+		q.samples[l] = slices.Clone(p.samples[l])
+		q.bands[l] = slices.Clone(p.bands[l])
+	}
+	return q
 }
 
 // TestFuseHandheldCancel checks that a handheld Fuse cancelled part way
