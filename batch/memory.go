@@ -38,9 +38,10 @@ const (
 	// estHandheldPixel is per pixel of a handheld sweep's images, for
 	// its fusion, which tracks the camera: the 120-frame 640×480
 	// handheld bench sweep's Fuse peaked at 555–582 MiB of Go heap
-	// (BenchmarkFuseHandheld, 2026-12-02), and at 660 MiB (2 253 bytes a
-	// pixel) when it prepared two frames ahead; the estimate keeps the
-	// higher figure. It holds the frames' regions kept for the pose
+	// (BenchmarkFuseHandheld, 2026-12-02), at 660 MiB (2 253 bytes a
+	// pixel) when it prepared two frames ahead, and at 585–645 MiB once
+	// tracking handed node frames to the pose graph (2026-12-03); the
+	// estimate keeps the higher figure. It holds the frames' regions kept for the pose
 	// graph (up to FuseOptions.KeepBytes), the graph's nodes, the scene
 	// volume and the trackers' pyramids.
 	estHandheldPixel = 2300
