@@ -62,14 +62,6 @@ func Zlib(dst, src []byte) error {
 	return nil
 }
 
-// Deflate decompresses the raw DEFLATE data at the start of src into
-// dst, whose length must be exactly the decompressed size, and returns
-// how many bytes of src the data took (the last one maybe in part).
-func Deflate(dst, src []byte) (int, error) {
-	d := decoder{src: src}
-	return d.inflate(dst)
-}
-
 // fastBits is how many bits of input one look-up decodes: the
 // literal/length codes of image data are mostly shorter.
 const fastBits = 11
@@ -85,13 +77,13 @@ type huffman struct {
 	// from them bit by bit.
 	count   [16]uint16
 	symbols [288]uint16
-	empty   bool // no codes at all: any use is an error
 }
 
 // build makes the code for the code lengths given, one per symbol (0
 // for an unused symbol). It fails on an over-subscribed code, and on an
 // incomplete one unless it is a single code of one bit, which zlib and
-// compress/flate accept. An empty code builds, and fails when used.
+// compress/flate accept. An empty code builds, and fails when used: no
+// input decodes to a symbol.
 func (h *huffman) build(lengths []uint8) bool {
 	h.count = [16]uint16{}
 	for _, l := range lengths {
@@ -107,7 +99,6 @@ func (h *huffman) build(lengths []uint8) bool {
 			return false
 		}
 	}
-	h.empty = codes == 0
 	if left > 0 && codes > 0 && !(codes == 1 && h.count[1] == 1) {
 		return false
 	}
@@ -118,7 +109,6 @@ func (h *huffman) build(lengths []uint8) bool {
 		code = (code + int(h.count[l-1])) << 1
 		next[l] = code
 	}
-	offs[0] = 0
 	h.fast = [1 << fastBits]uint16{}
 	for s, l := range lengths {
 		if l == 0 {
@@ -145,22 +135,36 @@ func (h *huffman) build(lengths []uint8) bool {
 	return true
 }
 
+// decode returns symbol<<4 | code length for the code that starts
+// bits, or 0 where none does.
+func (h *huffman) decode(bits uint64) uint16 {
+	if e := h.fast[bits&(1<<fastBits-1)]; e != 0 {
+		return e
+	}
+	return h.slow(bits)
+}
+
 // slow decodes a code longer than fastBits (or an input that starts no
-// code) bit by bit from bits: the symbol and the code's length, or -1.
-func (h *huffman) slow(bits uint64) (int, uint) {
+// code) bit by bit from bits, as decode returns it.
+//
+// It is kept out of line so that decode, which calls it rarely, is
+// inlined in the decoding loop.
+//
+//go:noinline
+func (h *huffman) slow(bits uint64) uint16 {
 	code, first, index := 0, 0, 0
-	for l := uint(1); l < 16; l++ {
+	for l := 1; l < 16; l++ {
 		code |= int(bits & 1)
 		bits >>= 1
 		c := int(h.count[l])
 		if code-first < c {
-			return int(h.symbols[index+code-first]), l
+			return h.symbols[index+code-first]<<4 | uint16(l)
 		}
 		index += c
 		first = (first + c) << 1
 		code <<= 1
 	}
-	return -1, 0
+	return 0
 }
 
 // Base values and extra bits of the length codes 257–285 and distance
@@ -350,8 +354,8 @@ func (d *decoder) dynamic() error {
 		}
 		cl[codeOrder[i]] = uint8(d.take(3))
 	}
-	var clh huffman // the code length code; fast covers its 7-bit codes
-	if !clh.build(cl[:]) || clh.empty {
+	var clh huffman // the code length code
+	if !clh.build(cl[:]) {
 		return ErrCorrupt
 	}
 	var lengths [286 + 30]uint8
@@ -362,9 +366,9 @@ func (d *decoder) dynamic() error {
 				return err
 			}
 		}
-		e := clh.fast[d.bits&(1<<fastBits-1)]
+		e := clh.decode(d.bits)
 		if e == 0 {
-			return ErrCorrupt // a degenerate code's unused pattern
+			return ErrCorrupt
 		}
 		d.take(uint(e & 15))
 		sym := e >> 4
@@ -407,7 +411,6 @@ func (d *decoder) dynamic() error {
 // o, up to its end-of-block code. The bit buffer lives in locals here,
 // where the compiler keeps it in registers.
 func (d *decoder) codes(dst []byte, o int, lit, dist *huffman) (int, error) {
-	const mask = 1<<fastBits - 1
 	src := d.src
 	bits, nb, pos := d.bits, d.nb, d.pos
 	defer func() { d.bits, d.nb, d.pos = bits, nb, pos }()
@@ -427,20 +430,13 @@ func (d *decoder) codes(dst []byte, o int, lit, dist *huffman) (int, error) {
 				bits, nb, pos = d.bits, d.nb, d.pos
 			}
 		}
-		var sym int
-		if e := lit.fast[bits&mask]; e != 0 {
-			sym = int(e >> 4)
-			bits >>= e & 15
-			nb -= uint(e & 15)
-		} else {
-			s, l := lit.slow(bits)
-			if s < 0 {
-				return 0, ErrCorrupt
-			}
-			sym = s
-			bits >>= l
-			nb -= l
+		e := lit.decode(bits)
+		if e == 0 {
+			return 0, ErrCorrupt
 		}
+		bits >>= e & 15
+		nb -= uint(e & 15)
+		sym := int(e >> 4)
 		if sym < 256 {
 			if o >= len(dst) {
 				return 0, ErrSize
@@ -460,23 +456,13 @@ func (d *decoder) codes(dst []byte, o int, lit, dist *huffman) (int, error) {
 		length := int(lengthBase[sym]) + int(bits&(1<<eb-1))
 		bits >>= eb
 		nb -= uint(eb)
-		if dist.empty {
+		e = dist.decode(bits) // an empty code decodes nothing
+		if e == 0 {
 			return 0, ErrCorrupt
 		}
-		var ds int
-		if e := dist.fast[bits&mask]; e != 0 {
-			ds = int(e >> 4)
-			bits >>= e & 15
-			nb -= uint(e & 15)
-		} else {
-			s, l := dist.slow(bits)
-			if s < 0 {
-				return 0, ErrCorrupt
-			}
-			ds = s
-			bits >>= l
-			nb -= l
-		}
+		bits >>= e & 15
+		nb -= uint(e & 15)
+		ds := int(e >> 4)
 		if ds >= len(distBase) {
 			return 0, ErrCorrupt // 30 and 31, in the fixed code
 		}

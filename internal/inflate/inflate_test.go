@@ -2,9 +2,9 @@ package inflate
 
 import (
 	"bytes"
-	"compress/flate"
 	"compress/zlib"
 	"errors"
+	"hash/adler32"
 	"io"
 	"math"
 	"math/rand/v2"
@@ -189,22 +189,120 @@ func checkAgainstStdlib(t *testing.T, src []byte, limit int) {
 	}
 }
 
-// TestDeflateDegenerateCodes decodes raw DEFLATE blocks whose distance
-// code is empty or a single one-bit code, which RFC 1951 allows and
-// compress/flate accepts, and one whose literal/length code is
-// incomplete, which both refuse.
-func TestDeflateDegenerateCodes(t *testing.T) {
-	for _, level := range []int{flate.BestSpeed, flate.DefaultCompression} {
-		// Literals only: compress/flate writes one distance code or none.
-		for _, data := range [][]byte{{'a'}, []byte("abcdefghijklmnopqrstuvwxyz")} {
-			var buf bytes.Buffer
-			fw, _ := flate.NewWriter(&buf, level)
-			fw.Write(data)
-			fw.Close()
-			got := make([]byte, len(data))
-			if _, err := Deflate(got, buf.Bytes()); err != nil || !bytes.Equal(got, data) {
-				t.Errorf("level %d %q: %q, %v", level, data, got, err)
-			}
+// bitWriter packs bits as DEFLATE does (RFC 1951, 3.1.1): values from
+// their least significant bit, Huffman codes from their most.
+type bitWriter struct {
+	out   []byte
+	nbits uint
+}
+
+func (w *bitWriter) bits(v uint, n uint) {
+	for i := uint(0); i < n; i++ {
+		if w.nbits%8 == 0 {
+			w.out = append(w.out, 0)
+		}
+		w.out[len(w.out)-1] |= byte((v>>i)&1) << (w.nbits % 8)
+		w.nbits++
+	}
+}
+
+func (w *bitWriter) code(c, n uint) {
+	for i := n; i > 0; i-- {
+		w.bits(c>>(i-1)&1, 1)
+	}
+}
+
+// canonical assigns the canonical codes of RFC 1951, 3.2.2, to lengths.
+func canonical(lengths []uint8) []uint {
+	var count, next [16]uint
+	for _, l := range lengths {
+		count[l]++
+	}
+	count[0] = 0
+	code := uint(0)
+	for l := 1; l < 16; l++ {
+		code = (code + count[l-1]) << 1
+		next[l] = code
+	}
+	codes := make([]uint, len(lengths))
+	for s, l := range lengths {
+		if l > 0 {
+			codes[s] = next[l]
+			next[l]++
+		}
+	}
+	return codes
+}
+
+// dynamicZlib writes a zlib stream of one final dynamic block (RFC 1951,
+// 3.2.7) with the literal/length code lengths lit (257 of them or more)
+// and distance code lengths dist, holding the literals of data then the
+// end-of-block code; each code length is sent as a code length symbol
+// of its own, with a code length code of 4 bits a symbol for 0–15.
+func dynamicZlib(lit, dist []uint8, data []byte) []byte {
+	w := &bitWriter{out: []byte{0x78, 0x01}, nbits: 16}
+	w.bits(1, 1) // BFINAL
+	w.bits(2, 2) // dynamic
+	w.bits(uint(len(lit)-257), 5)
+	w.bits(uint(len(dist)-1), 5)
+	w.bits(19-4, 4)
+	order := []int{16, 17, 18, 0, 8, 7, 9, 6, 10, 5, 11, 4, 12, 3, 13, 2, 14, 1, 15}
+	for _, sym := range order {
+		if sym < 16 {
+			w.bits(4, 3)
+		} else {
+			w.bits(0, 3)
+		}
+	}
+	for _, l := range append(append([]uint8{}, lit...), dist...) {
+		w.code(uint(l), 4) // 16 codes of 4 bits: symbol l's code is l
+	}
+	codes := canonical(lit)
+	for _, b := range data {
+		w.code(codes[b], uint(lit[b]))
+	}
+	w.code(codes[256], uint(lit[256]))
+	sum := adler32.Checksum(data)
+	return append(w.out, byte(sum>>24), byte(sum>>16), byte(sum>>8), byte(sum))
+}
+
+// TestZlibHandBuiltCodes decodes dynamic blocks built bit by bit
+// against RFC 1951: a distance code that is empty or a single one-bit
+// code (allowed when the block has no matches, 3.2.7, and accepted by
+// zlib and compress/flate) is read; an incomplete or over-subscribed
+// literal/length code is refused, as compress/zlib refuses it.
+func TestZlibHandBuiltCodes(t *testing.T) {
+	lit := func(set map[int]uint8) []uint8 {
+		l := make([]uint8, 257)
+		for s, n := range set {
+			l[s] = n
+		}
+		return l
+	}
+	cases := []struct {
+		name string
+		lit  []uint8
+		dist []uint8
+		data string
+		ok   bool
+	}{
+		{"empty distance code", lit(map[int]uint8{'a': 1, 256: 1}), []uint8{0}, "aaa", true},
+		{"single one-bit distance code", lit(map[int]uint8{'a': 1, 256: 1}), []uint8{1}, "aaa", true},
+		{"two-bit literal code", lit(map[int]uint8{'a': 2, 'b': 2, 'c': 2, 256: 2}), []uint8{0}, "abacab", true},
+		{"incomplete literal code", lit(map[int]uint8{'a': 1, 256: 2}), []uint8{0}, "aaa", false},
+		{"over-subscribed literal code", lit(map[int]uint8{'a': 1, 'b': 1, 256: 1}), []uint8{0}, "aaa", false},
+	}
+	for _, c := range cases {
+		data := []byte(c.data)
+		src := dynamicZlib(c.lit, c.dist, data)
+		want, ok := stdlibZlib(src, 100)
+		if ok != c.ok || (ok && !bytes.Equal(want, data)) {
+			t.Fatalf("%s: compress/zlib reads %q, %v; the stream is not what the test means", c.name, want, ok)
+		}
+		checkAgainstStdlib(t, src, 100)
+		got := make([]byte, len(data))
+		if err := Zlib(got, src); (err == nil) != c.ok {
+			t.Errorf("%s: %v", c.name, err)
 		}
 	}
 }
