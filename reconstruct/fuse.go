@@ -1045,7 +1045,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			continue
 		}
 		newKey := placed == 0
-		tracked, trackedColour := false, false // the frame's pyramid is tr's
+		trackedColour := false // tr's pyramid of the frame has luminance
 		switch {
 		case given:
 			pose = fr.CamToWorld
@@ -1085,7 +1085,7 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			}
 			prev, pose = pose, res.CamToWorld
 			newKey = res.KeyOverlap < f.opt.Track.KeyframeOverlap
-			tracked, trackedColour = true, c
+			trackedColour = c
 		}
 		ahead.recycle(prep)
 		isNode := graph && f.opt.Loop.isNode(nodes, pose)
@@ -1093,15 +1093,13 @@ func (f *fuser) handheld(ctx context.Context, worldFromFirst mesh.Pose) error {
 			if isNode {
 				n := graphNode{placed: placed, pose: pose, depth: slices.Clone(fr.Depth)}
 				if placed > 0 && f.opt.Track.DepthFilter > 0 {
-					// tracking has just filtered this frame's depth
+					// tracking has just filtered this frame's depth, and
+					// prepared it as the registrations will
 					n.tdepth = tr.filteredDepth()
+					n.prep = tr.snapshotPrepared(len(nodes), trackedColour, gb.spareFrame())
 				}
 				if colour {
 					n.lum = lum // the frame's own, from prepareAhead
-				}
-				if tracked && n.tdepth != nil && (!trackedColour || n.lum != nil) {
-					// and prepared it as the registrations will
-					n.prep = tr.snapshotPrepared(len(nodes), trackedColour, gb.spareFrame())
 				}
 				nodes = append(nodes, n)
 			}

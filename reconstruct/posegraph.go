@@ -337,7 +337,7 @@ func (c *frameCache) use(t *Tracker, k int, depth, lum []float32) bool {
 			}
 		}
 		if c.handed != nil {
-			if h := c.handed(k); h != nil && h.node == k && h.colour == colour {
+			if h := c.handed(k); h != nil && h.colour == colour {
 				p, fresh = h, false
 			} else if h != nil && c.spare != nil {
 				c.spare(h)

@@ -444,17 +444,14 @@ func TestNodeModelRoundTrip(t *testing.T) {
 	}
 }
 
-// TestFrameCacheRegistrations checks that registrations through a
-// frameCache (frames prepared once and reused, evicted when it is full)
-// give the same edges, to the bit, as TrackColor preparing every frame
-// anew: on the nodes of a half-size handheld sweep, each with the scene
-// volume's raycast after its frame was fused at its true pose, a cache
-// of two frames for up to four earlier nodes a later node.
-func TestFrameCacheRegistrations(t *testing.T) {
-	if testing.Short() {
-		t.Skip("renders a sweep")
-	}
-	dir := synthSweep(t, "bracket", halfSizeHandheld(30))
+// truePoseNodes renders a half-size handheld sweep of part and makes
+// every every-th frame a pose graph node at its true pose, each with
+// the scene volume's raycast after its frame was fused, its depth
+// filtered as tracking filters it, and its luminance; it returns the
+// nodes and their frames.
+func truePoseNodes(t *testing.T, part string, frames, every int) ([]graphNode, []*Frame, mesh.Intrinsics) {
+	t.Helper()
+	dir := synthSweep(t, part, halfSizeHandheld(frames))
 	sw, err := LoadSweep(dir)
 	if err != nil {
 		t.Fatal(err)
@@ -473,6 +470,7 @@ func TestFrameCacheRegistrations(t *testing.T) {
 	var tr *Tracker
 	f := &fuser{opt: opt}
 	var nodes []graphNode
+	var nodeFrames []*Frame
 	for _, idx := range sw.Usable() {
 		fr, err := sw.Frame(idx)
 		if err != nil {
@@ -488,7 +486,7 @@ func TestFrameCacheRegistrations(t *testing.T) {
 		if err := f.integrateScene(ctx, scene, fr, pose); err != nil {
 			t.Fatal(err)
 		}
-		if idx%3 != 0 {
+		if idx%every != 0 {
 			continue
 		}
 		tr.UpdateModel(ctx, pose)
@@ -496,7 +494,24 @@ func TestFrameCacheRegistrations(t *testing.T) {
 		bilateralDepth(fr.Depth, tdepth, make([]float32, len(fr.Depth)), intr.Width, intr.Height, opt.Track.DepthFilter, 0)
 		nodes = append(nodes, graphNode{placed: idx, pose: pose, depth: fr.Depth, tdepth: tdepth,
 			lum: Luminance(fr.Color, nil), model: compactModel(tr.model, pose)})
+		nodeFrames = append(nodeFrames, fr)
 	}
+	return nodes, nodeFrames, intr
+}
+
+// TestFrameCacheRegistrations checks that registrations through a
+// frameCache (frames prepared once and reused, evicted when it is full)
+// give the same edges, to the bit, as TrackColor preparing every frame
+// anew: on the nodes of a half-size handheld sweep, each with the scene
+// volume's raycast after its frame was fused at its true pose, a cache
+// of two frames for up to four earlier nodes a later node.
+func TestFrameCacheRegistrations(t *testing.T) {
+	if testing.Short() {
+		t.Skip("renders a sweep")
+	}
+	nodes, _, intr := truePoseNodes(t, "bracket", 30, 3)
+	ctx := context.Background()
+	opt := DefaultFuseOptions()
 	topt := opt.Track
 	topt.DepthFilter = 0
 	cached, err := NewTracker(nil, intr, topt)
@@ -565,61 +580,27 @@ func TestHandedFrames(t *testing.T) {
 	if testing.Short() {
 		t.Skip("renders a sweep")
 	}
-	dir := synthSweep(t, "nut", halfSizeHandheld(12))
-	sw, err := LoadSweep(dir)
-	if err != nil {
-		t.Fatal(err)
-	}
-	tp, err := ReadTruthPoses(filepath.Join(dir, TruthDir, TruthPosesName))
-	if err != nil {
-		t.Fatal(err)
-	}
+	nodes, frames, intr := truePoseNodes(t, "nut", 12, 2)
 	ctx := context.Background()
 	opt := DefaultFuseOptions()
-	scene, err := NewVolume(opt.sceneTSDF())
-	if err != nil {
-		t.Fatal(err)
-	}
-	f := &fuser{opt: opt}
-	var intr mesh.Intrinsics
-	var model *Tracker
-	var nodes []graphNode
 	var snaps []*preparedFrame
-	for _, idx := range sw.Usable() {
-		fr, err := sw.Frame(idx)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if model == nil {
-			intr = fr.Intr
-			if model, err = NewTracker(scene, intr, opt.Track); err != nil {
-				t.Fatal(err)
-			}
-		}
-		pose := tp.CamToWorld[idx]
-		if err := f.integrateScene(ctx, scene, fr, pose); err != nil {
-			t.Fatal(err)
-		}
-		if idx%2 != 0 {
-			continue
-		}
-		model.UpdateModel(ctx, pose)
+	for k, fr := range frames {
 		topt := opt.Track
 		topt.Workers = 1
 		ahead, err := NewTracker(nil, intr, topt)
 		if err != nil {
 			t.Fatal(err)
 		}
-		lum := Luminance(fr.Color, nil)
-		ahead.prepareColour(fr.Depth, lum, nil, true)
-		nodes = append(nodes, graphNode{placed: idx, pose: pose, depth: fr.Depth, tdepth: ahead.filteredDepth(),
-			lum: lum, model: compactModel(model.model, pose)})
-		snaps = append(snaps, ahead.snapshotPrepared(len(nodes)-1, true, nil))
+		ahead.prepareColour(fr.Depth, nodes[k].lum, nil, true)
+		if !slices.Equal(ahead.filteredDepth(), nodes[k].tdepth) {
+			t.Fatalf("node %d: tracking filtered the depth otherwise than the graph", k)
+		}
+		snaps = append(snaps, ahead.snapshotPrepared(k, true, nil))
 		// A copy into another frame's memory is the same copy.
-		again := ahead.snapshotPrepared(len(nodes)-1, true, snapshotCopy(snaps[0]))
+		again := ahead.snapshotPrepared(k, true, snapshotCopy(snaps[0]))
 		for l := range again.samples {
-			if !slices.Equal(again.samples[l], snaps[len(snaps)-1].samples[l]) || !slices.Equal(again.bands[l], snaps[len(snaps)-1].bands[l]) {
-				t.Fatalf("node %d, level %d: the copy into a spare frame differs", len(nodes)-1, l)
+			if !slices.Equal(again.samples[l], snaps[k].samples[l]) || !slices.Equal(again.bands[l], snaps[k].bands[l]) {
+				t.Fatalf("node %d, level %d: the copy into a spare frame differs", k, l)
 			}
 		}
 	}
